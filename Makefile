@@ -1,8 +1,11 @@
 # Developer and CI targets. `make test` is the test command README.md gives.
 GO ?= go
 PKGS := ./...
+# buf, pinned in tools/package.json + package-lock.json and installed by `make tools`
+# into tools/node_modules (gitignored).
+BUF := tools/node_modules/.bin/buf
 
-.PHONY: all build test test-short bench lint fmt generate check-generate validate demo
+.PHONY: all build test test-short bench lint fmt generate check-generate validate demo tools
 
 all: lint test
 
@@ -23,16 +26,32 @@ bench:
 fmt:
 	gofmt -w $$(git ls-files '*.go')
 
-lint:
+lint: $(BUF)
 	@out=$$(gofmt -l $$(git ls-files '*.go')); if [ -n "$$out" ]; then echo "gofmt needed:"; echo "$$out"; exit 1; fi
 	$(GO) vet $(PKGS)
 	$(GO) tool staticcheck $(PKGS)
+	$(BUF) lint
+	$(BUF) format -d --exit-code
+	BUF=$(BUF) tools/buf-breaking.sh
 
-generate:
-	@true
+# Pinned tools that do not come from go.mod's tool directives (buf, from npm; see BUF).
+tools: $(BUF)
 
+$(BUF): tools/package.json tools/package-lock.json
+	cd tools && npm ci --no-audit --no-fund --loglevel=error
+	@touch $@
+
+# Regenerates the protobuf Go code, the gateway and the OpenAPI document from proto/
+# (buf.gen.yaml). Works offline once `make tools` and `go mod download` have run.
+generate: $(BUF)
+	$(BUF) generate
+
+# Fails when the committed generated files differ from what `make generate` writes.
+GENERATED := proto gateway/openapi
 check-generate: generate
-	@git diff --exit-code -- proto gateway || (echo "generated code is stale: run make generate"; exit 1)
+	@if [ -n "$$(git status --porcelain -- $(GENERATED))" ]; then \
+		git status --short -- $(GENERATED); git diff --stat -- $(GENERATED); \
+		echo "generated code is stale or uncommitted: run make generate and commit"; exit 1; fi
 
 validate:
 	@true
