@@ -34,6 +34,10 @@ const (
 	CalibrationState_CALIBRATION_STATE_SUCCEEDED CalibrationState = 2
 	// The fit failed; error is set.
 	CalibrationState_CALIBRATION_STATE_FAILED CalibrationState = 3
+	// Accepted but not started yet.
+	CalibrationState_CALIBRATION_STATE_PENDING CalibrationState = 4
+	// Cancelled before it finished.
+	CalibrationState_CALIBRATION_STATE_CANCELLED CalibrationState = 5
 )
 
 // Enum value maps for CalibrationState.
@@ -43,12 +47,16 @@ var (
 		1: "CALIBRATION_STATE_RUNNING",
 		2: "CALIBRATION_STATE_SUCCEEDED",
 		3: "CALIBRATION_STATE_FAILED",
+		4: "CALIBRATION_STATE_PENDING",
+		5: "CALIBRATION_STATE_CANCELLED",
 	}
 	CalibrationState_value = map[string]int32{
 		"CALIBRATION_STATE_UNSPECIFIED": 0,
 		"CALIBRATION_STATE_RUNNING":     1,
 		"CALIBRATION_STATE_SUCCEEDED":   2,
 		"CALIBRATION_STATE_FAILED":      3,
+		"CALIBRATION_STATE_PENDING":     4,
+		"CALIBRATION_STATE_CANCELLED":   5,
 	}
 )
 
@@ -1027,12 +1035,14 @@ const file_voltcast_v1_calibration_proto_rawDesc = "" +
 	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\".\n" +
 	"\x18DeleteCalibrationRequest\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\"\x1b\n" +
-	"\x19DeleteCalibrationResponse*\x93\x01\n" +
+	"\x19DeleteCalibrationResponse*\xd3\x01\n" +
 	"\x10CalibrationState\x12!\n" +
 	"\x1dCALIBRATION_STATE_UNSPECIFIED\x10\x00\x12\x1d\n" +
 	"\x19CALIBRATION_STATE_RUNNING\x10\x01\x12\x1f\n" +
 	"\x1bCALIBRATION_STATE_SUCCEEDED\x10\x02\x12\x1c\n" +
-	"\x18CALIBRATION_STATE_FAILED\x10\x03*\xae\x01\n" +
+	"\x18CALIBRATION_STATE_FAILED\x10\x03\x12\x1d\n" +
+	"\x19CALIBRATION_STATE_PENDING\x10\x04\x12\x1f\n" +
+	"\x1bCALIBRATION_STATE_CANCELLED\x10\x05*\xae\x01\n" +
 	"\x13CalibrationTestKind\x12%\n" +
 	"!CALIBRATION_TEST_KIND_UNSPECIFIED\x10\x00\x12\x1f\n" +
 	"\x1bCALIBRATION_TEST_KIND_PULSE\x10\x01\x12,\n" +

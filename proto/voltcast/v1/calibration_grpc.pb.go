@@ -32,8 +32,8 @@ const (
 // CalibrationService fits battery-type parameters (open-circuit voltage, series
 // resistance, RC branches) to laboratory test data by least squares. A calibration is a
 // long-running job: CreateCalibration returns at once with the calibration in state
-// RUNNING; poll GetCalibration until it is SUCCEEDED or FAILED. A succeeded
-// calibration's fitted type can be registered with
+// PENDING or RUNNING; poll GetCalibration until it is SUCCEEDED, FAILED or
+// CANCELLED. A succeeded calibration's fitted type can be registered with
 // BatteryTypeService.CreateBatteryType.
 //
 // Current is positive on discharge (leaving the cell) and negative on charge.
@@ -106,8 +106,8 @@ func (c *calibrationServiceClient) DeleteCalibration(ctx context.Context, in *De
 // CalibrationService fits battery-type parameters (open-circuit voltage, series
 // resistance, RC branches) to laboratory test data by least squares. A calibration is a
 // long-running job: CreateCalibration returns at once with the calibration in state
-// RUNNING; poll GetCalibration until it is SUCCEEDED or FAILED. A succeeded
-// calibration's fitted type can be registered with
+// PENDING or RUNNING; poll GetCalibration until it is SUCCEEDED, FAILED or
+// CANCELLED. A succeeded calibration's fitted type can be registered with
 // BatteryTypeService.CreateBatteryType.
 //
 // Current is positive on discharge (leaving the cell) and negative on charge.
