@@ -1,0 +1,499 @@
+package fit
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+	"time"
+
+	"github.com/voltcast/voltcast/model/cell"
+	"github.com/voltcast/voltcast/model/table"
+)
+
+// Problem is a calibration task: the lab records of one cell design.
+type Problem struct {
+	// Name is the name of the fitted type; empty means "fitted".
+	Name string
+	// OCVTest is a low-rate (C/20-style) test; see [OCV].
+	OCVTest Record
+	// PulseTests are HPPC-style tests, one or more per temperature; see [Pulses].
+	PulseTests []Record
+	// DriveCycles are optional dynamic records used to refine the resistances and
+	// capacitances (see Settings.Refine) and reported against.
+	DriveCycles []Record
+	// Base supplies what lab data cannot: chemistry, charge method, limits, and the
+	// nominal voltage when set. Nil selects generic lithium-ion limits (see
+	// [LithiumLimits]). Base is not modified.
+	Base *cell.Type
+}
+
+// Settings control [Fit]. The zero value (or nil) selects the defaults.
+type Settings struct {
+	OCV   OCVSettings
+	Pulse PulseSettings
+	// NoRestAnchoring keeps the low-rate OCV curve as it is. By default the curve of
+	// each pulse-test temperature is moved through the pulse test's rested voltages
+	// (see [Fit]).
+	NoRestAnchoring bool
+	// Refine enables the drive-cycle refinement when DriveCycles are given.
+	Refine bool
+	// Sim is used for the drive-cycle reports and refinement.
+	Sim SimSettings
+	// Progress, when not nil, receives progress reports of every stage.
+	Progress func(Progress)
+}
+
+// Result is the outcome of [Fit].
+type Result struct {
+	Type   *cell.Type    // the fitted parameter set, validated
+	OCV    *OCVResult    // the low-rate OCV identification
+	Pulses []*PulseResult // one per pulse test
+	// Refinement holds the drive-cycle scale factors when Settings.Refine was used.
+	Refinement *Refinement
+	Report     Report
+	Runtime    time.Duration
+}
+
+// Report summarises a fit for people: the voltage error on every input record and
+// notes on the choices made.
+type Report struct {
+	Files []FileReport
+	Notes []string
+}
+
+// FileReport is the voltage error of the fitted type on one input record.
+type FileReport struct {
+	Name string
+	Role string // "ocv", "pulse" or "drive"
+	// How says how the record was simulated.
+	How       string
+	Samples   int
+	RMSE, Max float64   // V
+	Time      []float64 // s, of the compared samples
+	Residual  []float64 // modelled − measured, V
+}
+
+// LithiumLimits returns the generic lithium-ion limits used when a Problem has no
+// Base: CC-CV to 4.20 V, floor 2.5 V (REFERENCE.md §1a, BU-205), charge 0–45 °C and
+// discharge −20–60 °C (BU-410), standard charge 0.5C, maximum charge 1C, termination
+// C/20 (common practice), maximum continuous discharge 2C (common practice). The cut-off
+// is the voltage the low-rate test ended at (the lab's own cut-off), at least the floor.
+// Always check them against the cell maker's datasheet, which takes precedence.
+func LithiumLimits(cutoff float64) cell.Limits {
+	return cell.Limits{
+		ChargeVolts: 4.20, CutoffVolts: math.Max(cutoff, 2.5), FloorVolts: 2.5,
+		MaxChargeRate: 1, StandardChargeRate: 0.5, MaxDischargeRate: 2, TerminationRate: 0.05,
+		ChargeMinCelsius: 0, ChargeMaxCelsius: 45, DischargeMinCelsius: -20, DischargeMaxCelsius: 60,
+	}
+}
+
+// Fit calibrates a cell type from lab records.
+//
+//  1. The OCV curve and the capacity come from the low-rate test ([OCV]).
+//  2. Each pulse test gives R0 and RC parameters at several states of charge
+//     ([Pulses]). Pulse tests within 2 K of each other are pooled into one temperature.
+//  3. Rest anchoring: the rested voltages of the pulse tests are OCV samples at the
+//     pulse test's temperature and ageing state. The low-rate curve is moved through
+//     them by a correction interpolated linearly in state of charge between rests
+//     (held constant beyond the outermost), one OCV row per pulse temperature. This
+//     also gives the OCV its temperature dependence. The low-rate curve keeps its own
+//     row when no pulse test is within 2 K of its temperature.
+//  4. The parameters become tables over state of charge (the union of the level
+//     states of charge, plus 0 and 1 with the end values held) and temperature.
+//  5. With Settings.Refine and drive cycles, scale factors on the resistance and
+//     capacitance tables are fitted over the whole drive-cycle voltage traces
+//     ([Refine]).
+//
+// The result is deterministic: the same records and settings give the same type. ctx
+// is checked once per major iteration (pulse level, refinement iteration).
+func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
+	start := time.Now()
+	var s Settings
+	if settings != nil {
+		s = *settings
+	}
+	if s.Progress != nil && s.Pulse.Progress == nil {
+		s.Pulse.Progress = s.Progress
+	}
+	if len(p.PulseTests) == 0 {
+		return nil, fmt.Errorf("%w: at least one pulse test is needed", ErrData)
+	}
+	res := &Result{}
+	if s.Progress != nil {
+		s.Progress(Progress{Stage: "ocv", Name: p.OCVTest.Name, Done: 0, Total: 1})
+	}
+	ocv, err := OCV(p.OCVTest, &s.OCV)
+	if err != nil {
+		return nil, fmt.Errorf("ocv test: %w", err)
+	}
+	res.OCV = ocv
+	base, err := table.NewCurve(ocv.SOC, ocv.Volts)
+	if err != nil {
+		return nil, fmt.Errorf("ocv test: %w", err)
+	}
+	q := ocv.CapacityAh
+	for _, r := range p.PulseTests {
+		pr, err := Pulses(ctx, r, base, q, &s.Pulse)
+		if err != nil {
+			return nil, fmt.Errorf("pulse test: %w", err)
+		}
+		res.Pulses = append(res.Pulses, pr)
+	}
+	ps := s.Pulse.defaults()
+	typ, notes, err := assemble(p, ocv, base, res.Pulses, ps.Branches, !s.NoRestAnchoring)
+	if err != nil {
+		return nil, err
+	}
+	res.Report.Notes = append(res.Report.Notes, notes...)
+	if s.Refine && len(p.DriveCycles) > 0 {
+		ref, err := Refine(ctx, typ, p.DriveCycles, &RefineSettings{Sim: s.Sim, Progress: s.Progress})
+		if err != nil {
+			return nil, fmt.Errorf("drive-cycle refinement: %w", err)
+		}
+		res.Refinement = ref
+		typ = ref.Type
+		res.Report.Notes = append(res.Report.Notes, fmt.Sprintf("drive-cycle refinement: %s", ref))
+	}
+	if err := typ.Validate(); err != nil {
+		return nil, fmt.Errorf("fit: the fitted type is invalid: %w", err)
+	}
+	res.Type = typ
+	res.Report.Files = reportFiles(p, typ, res.Pulses, &s.Sim)
+	res.Runtime = time.Since(start)
+	return res, nil
+}
+
+// tempGroup is the pulse results pooled at one temperature.
+type tempGroup struct {
+	tk     float64
+	levels []Level
+	rests  []RestPoint
+}
+
+func groupByTemperature(prs []*PulseResult) []tempGroup {
+	idx := make([]int, len(prs))
+	for i := range idx {
+		idx[i] = i
+	}
+	sort.SliceStable(idx, func(a, b int) bool { return prs[idx[a]].TemperatureK < prs[idx[b]].TemperatureK })
+	var gs []tempGroup
+	for _, i := range idx {
+		pr := prs[i]
+		if n := len(gs); n > 0 && pr.TemperatureK-gs[n-1].tk < 2 {
+			g := &gs[n-1]
+			g.levels = append(g.levels, pr.Levels...)
+			g.rests = append(g.rests, pr.Rests...)
+			continue
+		}
+		gs = append(gs, tempGroup{tk: pr.TemperatureK, levels: append([]Level(nil), pr.Levels...), rests: append([]RestPoint(nil), pr.Rests...)})
+	}
+	// The temperature of a pooled group is the median of its levels'.
+	for j := range gs {
+		var t []float64
+		for _, l := range gs[j].levels {
+			t = append(t, l.TemperatureK)
+		}
+		gs[j].tk = median(t)
+	}
+	for j := 1; j < len(gs); j++ {
+		if gs[j].tk <= gs[j-1].tk {
+			gs[j].tk = gs[j-1].tk + 0.5
+		}
+	}
+	return gs
+}
+
+// assemble builds the cell type from the identified pieces.
+func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult, nb int, anchor bool) (*cell.Type, []string, error) {
+	gs := groupByTemperature(prs)
+	var notes []string
+	notes = append(notes, fmt.Sprintf("capacity %.4g Ah from the low-rate discharge (%s)", ocv.CapacityAh, p.OCVTest.Name))
+	notes = append(notes, "ocv: "+ocv.Method)
+
+	// OCV rows.
+	type row struct {
+		tk float64
+		v  []float64
+	}
+	var rows []row
+	ocvT := ocv.TemperatureK
+	near := false
+	for _, g := range gs {
+		v := append([]float64(nil), ocv.Volts...)
+		if anchor && len(g.rests) > 0 {
+			corr, rms := restCorrection(base, g.rests)
+			for k, z := range ocv.SOC {
+				v[k] += corr(z)
+			}
+			v = isotonic(v)
+			notes = append(notes, fmt.Sprintf("ocv at %.1f °C: anchored to %d rested voltages (rms offset of the low-rate curve %.1f mV)",
+				g.tk-cell.CelsiusOffset, len(g.rests), rms*1e3))
+		}
+		if math.Abs(g.tk-ocvT) < 2 {
+			near = true
+			if !anchor || len(g.rests) == 0 {
+				v = append([]float64(nil), ocv.Volts...)
+			}
+		}
+		rows = append(rows, row{g.tk, v})
+	}
+	if !near {
+		rows = append(rows, row{ocvT, append([]float64(nil), ocv.Volts...)})
+		sort.SliceStable(rows, func(a, b int) bool { return rows[a].tk < rows[b].tk })
+		for j := 1; j < len(rows); j++ {
+			if rows[j].tk-rows[j-1].tk < 0.5 {
+				return nil, nil, fmt.Errorf("fit: OCV rows at %.2f and %.2f K are too close", rows[j-1].tk, rows[j].tk)
+			}
+		}
+	}
+	var temps []float64
+	var vals [][]float64
+	for _, r := range rows {
+		temps = append(temps, r.tk)
+		vals = append(vals, r.v)
+	}
+	ocvSurf, err := table.NewSurface(ocv.SOC, temps, vals)
+	if err != nil {
+		return nil, nil, fmt.Errorf("fit: OCV table: %w", err)
+	}
+
+	// Parameter tables over a common SOC grid.
+	var zs []float64
+	for _, g := range gs {
+		for _, l := range g.levels {
+			zs = append(zs, l.SOC)
+		}
+	}
+	grid := mergeGrid(zs, 0.02)
+	var ptemps []float64
+	for _, g := range gs {
+		ptemps = append(ptemps, g.tk)
+	}
+	param := func(get func(l Level) float64) (*table.Surface, error) {
+		vals := make([][]float64, len(gs))
+		for j, g := range gs {
+			lz := make([]float64, len(g.levels))
+			lv := make([]float64, len(g.levels))
+			for i, l := range g.levels {
+				lz[i], lv[i] = l.SOC, get(l)
+			}
+			vals[j] = interpHold(lz, lv, grid)
+		}
+		return table.NewSurface(grid, ptemps, vals)
+	}
+	typ := &cell.Type{
+		Name:         p.Name,
+		CapacityAh:   ocv.CapacityAh,
+		OCV:          ocvSurf,
+		ChargeMethod: cell.ChargeCCCV,
+	}
+	if typ.Name == "" {
+		typ.Name = "fitted"
+	}
+	if typ.R0.Table, err = param(func(l Level) float64 { return l.R0.Value }); err != nil {
+		return nil, nil, fmt.Errorf("fit: R0 table: %w", err)
+	}
+	for j := range nb {
+		var b cell.Branch
+		if b.R.Table, err = param(func(l Level) float64 { return l.R[j].Value }); err != nil {
+			return nil, nil, fmt.Errorf("fit: R%d table: %w", j+1, err)
+		}
+		if b.C.Table, err = param(func(l Level) float64 { return l.Tau[j].Value / l.R[j].Value }); err != nil {
+			return nil, nil, fmt.Errorf("fit: C%d table: %w", j+1, err)
+		}
+		typ.Branches = append(typ.Branches, b)
+	}
+	// Nominal voltage: the mean OCV over state of charge at the reference row
+	// (energy ÷ capacity of a slow discharge; common practice).
+	ref := ocvSurf.Curve(0)
+	for j, tk := range ocvSurf.Temps() {
+		if math.Abs(tk-ocvT) < math.Abs(ocvSurf.Temps()[0]-ocvT) {
+			ref = ocvSurf.Curve(j)
+		}
+	}
+	var sum float64
+	const m = 200
+	for k := range m {
+		sum += ref.At((float64(k) + 0.5) / m)
+	}
+	typ.NominalVolts = math.Round(sum/m*100) / 100
+	cutoff := lastDischargeVolts(p.OCVTest)
+	if b := p.Base; b != nil {
+		typ.Chemistry = b.Chemistry
+		if b.ChargeMethod != "" {
+			typ.ChargeMethod = b.ChargeMethod
+		}
+		typ.Limits = b.Limits
+		typ.CoulombicEfficiency = b.CoulombicEfficiency
+		if b.NominalVolts > 0 {
+			typ.NominalVolts = b.NominalVolts
+		}
+		typ.Sources = append(typ.Sources, b.Sources...)
+		notes = append(notes, fmt.Sprintf("limits from the base type %q", b.Name))
+	} else {
+		typ.Limits = LithiumLimits(math.Round(cutoff*100) / 100)
+		notes = append(notes, "limits: generic lithium-ion (no chemistry given); check them against the cell maker's datasheet")
+	}
+	typ.Description = fmt.Sprintf("fitted from lab data: %d-RC Thevenin model, OCV and capacity from %s, resistances from %d pulse test(s)", nb, p.OCVTest.Name, len(prs))
+	typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+p.OCVTest.Name)
+	for _, r := range p.PulseTests {
+		typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+r.Name)
+	}
+	return typ, notes, nil
+}
+
+// restCorrection returns the OCV correction δ(z) through the rest points (median per
+// 0.02-wide cluster, linear between clusters, held beyond) and the RMS of the raw
+// offsets.
+func restCorrection(base *table.Curve, rests []RestPoint) (func(z float64) float64, float64) {
+	rs := append([]RestPoint(nil), rests...)
+	sort.SliceStable(rs, func(a, b int) bool { return rs[a].SOC < rs[b].SOC })
+	var cz, cd []float64
+	var ss float64
+	for i := 0; i < len(rs); {
+		j := i
+		var zz, dd []float64
+		for j < len(rs) && rs[j].SOC-rs[i].SOC < 0.02 {
+			d := rs[j].Volts - base.At(rs[j].SOC)
+			ss += d * d
+			zz = append(zz, rs[j].SOC)
+			dd = append(dd, d)
+			j++
+		}
+		cz = append(cz, median(zz))
+		cd = append(cd, median(dd))
+		i = j
+	}
+	rms := math.Sqrt(ss / float64(len(rs)))
+	return func(z float64) float64 { return interpHold(cz, cd, []float64{z})[0] }, rms
+}
+
+// interpHold interpolates (x, y) linearly at each g, holding the end values beyond;
+// x need not be sorted.
+func interpHold(x, y, g []float64) []float64 {
+	idx := make([]int, len(x))
+	for i := range idx {
+		idx[i] = i
+	}
+	sort.SliceStable(idx, func(a, b int) bool { return x[idx[a]] < x[idx[b]] })
+	xs := make([]float64, len(x))
+	ys := make([]float64, len(x))
+	for i, j := range idx {
+		xs[i], ys[i] = x[j], y[j]
+	}
+	out := make([]float64, len(g))
+	for k, v := range g {
+		switch {
+		case v <= xs[0]:
+			out[k] = ys[0]
+		case v >= xs[len(xs)-1]:
+			out[k] = ys[len(ys)-1]
+		default:
+			i := sort.SearchFloat64s(xs, v)
+			if xs[i] == v {
+				out[k] = ys[i]
+				continue
+			}
+			w := (v - xs[i-1]) / (xs[i] - xs[i-1])
+			out[k] = ys[i-1] + w*(ys[i]-ys[i-1])
+		}
+	}
+	return out
+}
+
+// mergeGrid sorts zs, merges values closer than tol (mean), and adds 0 and 1.
+func mergeGrid(zs []float64, tol float64) []float64 {
+	s := append([]float64(nil), zs...)
+	sort.Float64s(s)
+	var out []float64
+	for i := 0; i < len(s); {
+		j := i
+		var sum float64
+		for j < len(s) && s[j]-s[i] < tol {
+			sum += s[j]
+			j++
+		}
+		m := math.Min(math.Max(sum/float64(j-i), 0), 1)
+		if len(out) == 0 || m > out[len(out)-1] {
+			out = append(out, m)
+		}
+		i = j
+	}
+	if out[0] > 0.005 {
+		out = append([]float64{0}, out...)
+	}
+	if out[len(out)-1] < 0.995 {
+		out = append(out, 1)
+	}
+	return out
+}
+
+// lastDischargeVolts returns the lowest voltage of the record: the cut-off the
+// low-rate test ran to.
+func lastDischargeVolts(r Record) float64 {
+	return slicesMin(r.Voltage)
+}
+
+// reportFiles computes the voltage error of the fitted type on every input record.
+func reportFiles(p *Problem, typ *cell.Type, prs []*PulseResult, sim *SimSettings) []FileReport {
+	var out []FileReport
+	// The OCV test, simulated from full with the lab counter's start.
+	{
+		r := p.OCVTest
+		v := Simulate(nil, typ, r, r.initialSOC(), nil)
+		out = append(out, fileReport(r, "ocv", "simulated from full over the whole test", v, 0))
+	}
+	for i, r := range p.PulseTests {
+		out = append(out, pulseReport(r, typ, prs[i]))
+	}
+	for _, r := range p.DriveCycles {
+		v := Simulate(nil, typ, r, r.initialSOC(), sim)
+		out = append(out, fileReport(r, "drive", "simulated from the first sample", v, 0))
+	}
+	return out
+}
+
+func fileReport(r Record, role, how string, model []float64, from float64) FileReport {
+	fr := FileReport{Name: r.Name, Role: role, How: how}
+	for k := range model {
+		if r.Time[k] < from {
+			continue
+		}
+		fr.Time = append(fr.Time, r.Time[k])
+		fr.Residual = append(fr.Residual, model[k]-r.Voltage[k])
+	}
+	fr.Samples = len(fr.Residual)
+	fr.RMSE = math.Sqrt(sumSq(fr.Residual) / math.Max(1, float64(fr.Samples)))
+	for _, e := range fr.Residual {
+		fr.Max = math.Max(fr.Max, math.Abs(e))
+	}
+	return fr
+}
+
+// pulseReport simulates each window of a pulse test with the fitted type, from rest at
+// the window's start and anchored at its rested voltage (as the fit does).
+func pulseReport(r Record, typ *cell.Type, pr *PulseResult) FileReport {
+	fr := FileReport{Name: r.Name, Role: "pulse", How: "each pulse window simulated from its rested start, anchored at the rested voltage"}
+	pk := cell.Pack{Type: typ, Series: 1, Parallel: 1}
+	for _, w := range pr.Windows {
+		st := cell.State{SOC: w.SOC0}
+		s := w.Start
+		off := r.Voltage[s] - pk.Voltage(&st, 0, r.Temperature[s])
+		for k := s + 1; k < w.End; k++ {
+			pk.Step(&st, r.Current[k], r.Time[k]-r.Time[k-1], r.Temperature[k])
+			e := pk.Voltage(&st, r.Current[k], r.Temperature[k]) + off - r.Voltage[k]
+			fr.Time = append(fr.Time, r.Time[k])
+			fr.Residual = append(fr.Residual, e)
+		}
+	}
+	fr.Samples = len(fr.Residual)
+	fr.RMSE = math.Sqrt(sumSq(fr.Residual) / math.Max(1, float64(fr.Samples)))
+	for _, e := range fr.Residual {
+		fr.Max = math.Max(fr.Max, math.Abs(e))
+	}
+	return fr
+}
+
+var _ = errors.New

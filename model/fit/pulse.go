@@ -1,0 +1,611 @@
+package fit
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sort"
+
+	"github.com/voltcast/voltcast/model/table"
+)
+
+// PulseSettings control [Pulses]. The zero value (or nil) selects the defaults.
+type PulseSettings struct {
+	// Branches is the number of RC branches, 1 or 2. 0 means 2.
+	Branches int
+	// MinRest is the shortest rest, in seconds, after which the cell counts as relaxed
+	// so that a pulse window may start there. 0 means 120 s.
+	MinRest float64
+	// OCVRest is the shortest rest, in seconds, whose last voltage is taken as an
+	// open-circuit voltage point. 0 means 600 s.
+	OCVRest float64
+	// LevelTolerance groups windows whose starting states of charge differ by less
+	// than this into one level with shared parameters. 0 means 0.03.
+	LevelTolerance float64
+	// MinLevels is the fewest state-of-charge levels a pulse test must yield.
+	// 0 means 3.
+	MinLevels int
+	// MaxIterations bounds the Levenberg–Marquardt iterations per level. 0 means 100.
+	MaxIterations int
+	// Progress, when not nil, is called after each level is fitted.
+	Progress func(Progress)
+}
+
+func (s *PulseSettings) defaults() PulseSettings {
+	var o PulseSettings
+	if s != nil {
+		o = *s
+	}
+	if o.Branches == 0 {
+		o.Branches = 2
+	}
+	if o.MinRest == 0 {
+		o.MinRest = 120
+	}
+	if o.OCVRest == 0 {
+		o.OCVRest = 600
+	}
+	if o.LevelTolerance == 0 {
+		o.LevelTolerance = 0.03
+	}
+	if o.MinLevels == 0 {
+		o.MinLevels = 3
+	}
+	if o.MaxIterations == 0 {
+		o.MaxIterations = 100
+	}
+	return o
+}
+
+// Progress reports how far a fit has come.
+type Progress struct {
+	Stage       string // "ocv", "pulse", "refine"
+	Name        string // record being worked on
+	Done, Total int    // units of the stage (levels, iterations)
+}
+
+// Interval is an estimate with a 95 % confidence interval. Low and High are NaN when
+// the method gives no interval.
+type Interval struct {
+	Value, Low, High float64
+}
+
+// Level is the equivalent-circuit parameters identified at one state-of-charge level
+// of one pulse test.
+type Level struct {
+	SOC          float64 // charge-weighted mean state of charge over the level's pulses
+	TemperatureK float64 // median cell temperature over the level, K
+	// R0Step is the raw step estimate −ΣΔV·ΔI/ΣΔI² over the level's current edges, Ω:
+	// it includes whatever the RC branches moved during the first sampling interval.
+	R0Step float64
+	R0     Interval   // series resistance, Ω
+	R, Tau []Interval // branch resistances (Ω) and time constants (s), fastest first
+	// Samples is the number of residuals; RMSE and Max are the fit's voltage error, V.
+	Samples   int
+	RMSE, Max float64
+	Windows   int // pulse windows in the level
+	// TauMax is the upper bound the time constants were fitted within, s.
+	TauMax float64
+}
+
+// RestPoint is a rested terminal voltage, taken as an open-circuit voltage sample.
+type RestPoint struct {
+	SOC, Volts, TemperatureK float64
+	RestSeconds              float64
+}
+
+// PulseResult is what [Pulses] identifies from one pulse test.
+type PulseResult struct {
+	Name   string
+	Levels []Level
+	Rests  []RestPoint
+	// TemperatureK is the median cell temperature over all windows.
+	TemperatureK float64
+	// Windows lists the sample ranges fitted, for residual reports.
+	Windows []Window
+	// RestAmps is the current below which a sample counted as rest, A.
+	RestAmps float64
+	// Gaps counts logging gaps found with the lab counter.
+	Gaps int
+}
+
+// Window is a stretch of a pulse test simulated as one piece: it starts at a rested
+// sample (Start) and runs to End (exclusive).
+type Window struct {
+	Start, End int
+	Level      int     // index into PulseResult.Levels
+	SOC0       float64 // state of charge at Start
+}
+
+// pulseModel evaluates the window model for one level. Each window starts from rest:
+//
+//	v̂[k] = v[s] + OCV(z[k]) − OCV(z[s]) − R0·i[k] − Σⱼ vⱼ[k],
+//	vⱼ[k] = aⱼ·vⱼ[k−1] + Rⱼ·(1−aⱼ)·i[k], aⱼ = exp(−(t[k]−t[k−1])/τⱼ), vⱼ[s] = 0,
+//
+// the exact zero-order-hold solution with the current i[k] held over (t[k−1], t[k]], the
+// convention of the shared datasets' counters. Anchoring at the rested voltage v[s]
+// makes the fit independent of any offset between the OCV table and this test.
+type pulseModel struct {
+	rec     *Record
+	z       []float64 // SOC per sample
+	ocv     *table.Curve
+	windows []Window
+	n       int     // residual count
+	rest    float64 // rest current threshold, A
+}
+
+// residuals writes v̂ − v for the parameters r0, rs, taus into dst.
+func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
+	rec := m.rec
+	var vb [2]float64
+	p := 0
+	for _, w := range m.windows {
+		vb = [2]float64{}
+		s := w.Start
+		base := rec.Voltage[s] - m.ocv.At(m.z[s])
+		for k := s + 1; k < w.End; k++ {
+			dt := rec.Time[k] - rec.Time[k-1]
+			i := rec.Current[k]
+			v := base + m.ocv.At(m.z[k]) - r0*i
+			for j := range rs {
+				a := math.Exp(-dt / taus[j])
+				vb[j] = a*vb[j] + rs[j]*(1-a)*i
+				v -= vb[j]
+			}
+			dst[p] = v - rec.Voltage[k]
+			p++
+		}
+	}
+}
+
+// filterColumns writes the regressors of the model that is linear in (R0, R1, R2) for
+// fixed time constants: y = OCV difference − v, columns i and fⱼ (the branch filters
+// with unit resistance). It returns the SSR of the non-negative least-squares fit and
+// the resistances.
+func (m *pulseModel) linearFit(taus []float64, cols [][]float64, y []float64) (float64, []float64) {
+	rec := m.rec
+	nb := len(taus)
+	p := 0
+	var f [2]float64
+	for _, w := range m.windows {
+		f = [2]float64{}
+		s := w.Start
+		base := rec.Voltage[s] - m.ocv.At(m.z[s])
+		for k := s + 1; k < w.End; k++ {
+			dt := rec.Time[k] - rec.Time[k-1]
+			i := rec.Current[k]
+			y[p] = base + m.ocv.At(m.z[k]) - rec.Voltage[k]
+			cols[0][p] = i
+			for j := range nb {
+				a := math.Exp(-dt / taus[j])
+				f[j] = a*f[j] + (1-a)*i
+				cols[j+1][p] = f[j]
+			}
+			p++
+		}
+	}
+	return nnls(cols, y)
+}
+
+// nnls solves min ‖Σ xⱼ·colsⱼ − y‖² with x ≥ 0 for up to three columns by trying every
+// active set (exact for so few columns).
+func nnls(cols [][]float64, y []float64) (float64, []float64) {
+	q := len(cols)
+	best := math.Inf(1)
+	var bx []float64
+	for mask := 1; mask < 1<<q; mask++ {
+		var idx []int
+		for j := range q {
+			if mask&(1<<j) != 0 {
+				idx = append(idx, j)
+			}
+		}
+		m := len(idx)
+		var a [3][3]float64
+		var b [3]float64
+		for r, jr := range idx {
+			for c, jc := range idx {
+				a[r][c] = dot(cols[jr], cols[jc])
+			}
+			b[r] = dot(cols[jr], y)
+		}
+		x, ok := solveSmall(a, b, m)
+		if !ok {
+			continue
+		}
+		neg := false
+		for _, v := range x[:m] {
+			if v < 0 {
+				neg = true
+			}
+		}
+		if neg {
+			continue
+		}
+		full := make([]float64, q)
+		for r, j := range idx {
+			full[j] = x[r]
+		}
+		var ssr float64
+		for k := range y {
+			e := -y[k]
+			for j := range q {
+				e += full[j] * cols[j][k]
+			}
+			ssr += e * e
+		}
+		if ssr < best {
+			best, bx = ssr, full
+		}
+	}
+	return best, bx
+}
+
+// solveSmall solves an m×m symmetric positive system by Gaussian elimination with
+// partial pivoting (m ≤ 3).
+func solveSmall(a [3][3]float64, b [3]float64, m int) ([3]float64, bool) {
+	for c := range m {
+		piv := c
+		for r := c + 1; r < m; r++ {
+			if math.Abs(a[r][c]) > math.Abs(a[piv][c]) {
+				piv = r
+			}
+		}
+		if math.Abs(a[piv][c]) < 1e-300 {
+			return b, false
+		}
+		a[c], a[piv] = a[piv], a[c]
+		b[c], b[piv] = b[piv], b[c]
+		for r := c + 1; r < m; r++ {
+			f := a[r][c] / a[c][c]
+			for k := c; k < m; k++ {
+				a[r][k] -= f * a[c][k]
+			}
+			b[r] -= f * b[c]
+		}
+	}
+	var x [3]float64
+	for r := m - 1; r >= 0; r-- {
+		s := b[r]
+		for k := r + 1; k < m; k++ {
+			s -= a[r][k] * x[k]
+		}
+		x[r] = s / a[r][r]
+	}
+	return x, true
+}
+
+func dot(a, b []float64) float64 {
+	var s float64
+	for i := range a {
+		s += a[i] * b[i]
+	}
+	return s
+}
+
+// Pulses identifies R0 and the RC branches from an HPPC-style pulse test.
+//
+// # Method
+//
+// State of charge comes from the charge counter (the lab's own when present, since a
+// tester may not log the moves between levels) and the capacity q (Ah) of the OCV test:
+// z = 1 − (ah − min ah)/q, i.e. the test is taken to be full at its lowest counter value,
+// as a test that starts from, or first charges to, full is. A sample is at rest when
+// |i| < q/100 A. A logging gap is a step where the counter moves by more than the logged
+// current explains; the cell is taken as relaxed after one.
+//
+// The record is cut into windows, each starting at the last sample of a rest of at least
+// MinRest seconds (or after a gap) and running to the next such start, gap or the end.
+// Windows whose starting states of charge lie within LevelTolerance form a level; each
+// level gets one parameter set, fitted to every sample of its windows by the window
+// model (see pulseModel: exact ZOH, rested start, voltage anchored at the rested value).
+//
+// R0 and the sampling interval: the first sample after a current edge comes δ seconds
+// after it (0.1 s, 1 s or 10 s in the shared datasets), so the raw step ΔV/ΔI already
+// holds the RC branches' response over δ. The raw step is reported as R0Step; the R0
+// of the model is fitted jointly with the branches, so it is the step extrapolated back
+// to the edge through the fitted relaxation. Dynamics faster than δ cannot be seen and
+// end up in R0.
+//
+// The time constants are found first by a grid search over pairs τ₁ < τ₂ (0.3 s to
+// 3000 s, logarithmic), each with the resistances from non-negative linear least squares
+// (the model is linear in R0 and Rⱼ for fixed τ), then refined by Levenberg–Marquardt
+// over log-parameters. Confidence intervals are ±1.96 standard errors of the
+// log-parameters from the Jacobian at the solution (s²·(JᵀJ)⁻¹); the residuals are
+// correlated in time, so they are optimistic. Rested voltages before windows that
+// followed a rest of at least OCVRest seconds are returned as OCV points.
+//
+// ocv is the OCV curve at (or near) the test's temperature; q must be positive. ctx is
+// checked once per level.
+func Pulses(ctx context.Context, rec Record, ocv *table.Curve, q float64, settings *PulseSettings) (*PulseResult, error) {
+	s := settings.defaults()
+	if s.Branches < 1 || s.Branches > 2 {
+		return nil, fmt.Errorf("fit: pulse fit supports 1 or 2 RC branches, got %d", s.Branches)
+	}
+	if err := rec.check(10); err != nil {
+		return nil, err
+	}
+	if !(q > 0) || math.IsInf(q, 0) {
+		return nil, fmt.Errorf("fit: capacity must be positive, got %g Ah", q)
+	}
+	if err := rec.checkRate(q, 50); err != nil {
+		return nil, err
+	}
+	ah := rec.counter()
+	z := make([]float64, rec.Len())
+	if rec.InitialSOC != nil {
+		for k := range z {
+			z[k] = *rec.InitialSOC - ah[k]/q
+		}
+	} else {
+		lo := slicesMin(ah)
+		for k := range z {
+			z[k] = 1 - (ah[k]-lo)/q
+		}
+	}
+	res := &PulseResult{Name: rec.Name, RestAmps: q / 100}
+	restA := res.RestAmps
+	n := rec.Len()
+	rest := func(k int) bool { return math.Abs(rec.Current[k]) < restA }
+	gap := make([]bool, n) // gap[k]: charge moved unlogged between k−1 and k
+	for k := 1; k < n; k++ {
+		dt := rec.Time[k] - rec.Time[k-1]
+		if rec.DischargedAh != nil {
+			exp := rec.Current[k] * dt / 3600
+			if math.Abs((ah[k]-ah[k-1])-exp) > 0.002*q+restA*dt/3600 {
+				gap[k] = true
+				res.Gaps++
+			}
+		} else if dt > 3600 && !(rest(k) && rest(k-1)) {
+			gap[k] = true
+			res.Gaps++
+		}
+	}
+
+	// Window starts: an edge out of rest after a long enough rest or a gap.
+	type start struct {
+		k        int
+		restSecs float64
+		afterGap bool
+	}
+	var starts []start
+	restBegin, restGap := 0, true
+	for k := 1; k < n; k++ {
+		if gap[k] {
+			restBegin, restGap = k, true
+		}
+		if rest(k) && !rest(k-1) {
+			restBegin, restGap = k, false
+		}
+		if rest(k-1) && !rest(k) && !gap[k] {
+			secs := rec.Time[k-1] - rec.Time[restBegin]
+			if secs >= s.MinRest || restGap {
+				starts = append(starts, start{k - 1, secs, restGap})
+			}
+		}
+	}
+	// Windows run to the next start or gap.
+	var wins []Window
+	for i, st := range starts {
+		end := n
+		if i+1 < len(starts) {
+			end = starts[i+1].k + 1
+		}
+		for k := st.k + 1; k < end; k++ {
+			if gap[k] {
+				end = k
+				break
+			}
+		}
+		if end-st.k < 4 {
+			continue
+		}
+		wins = append(wins, Window{Start: st.k, End: end, SOC0: z[st.k]})
+		if st.restSecs >= s.OCVRest && !st.afterGap {
+			res.Rests = append(res.Rests, RestPoint{SOC: z[st.k], Volts: rec.Voltage[st.k], TemperatureK: rec.Temperature[st.k], RestSeconds: st.restSecs})
+		}
+	}
+	// Group into levels.
+	var groups [][]int
+	for i, w := range wins {
+		if len(groups) > 0 {
+			g := groups[len(groups)-1]
+			if math.Abs(w.SOC0-wins[g[0]].SOC0) < s.LevelTolerance {
+				groups[len(groups)-1] = append(g, i)
+				continue
+			}
+		}
+		groups = append(groups, []int{i})
+	}
+	if len(groups) < s.MinLevels {
+		return nil, fmt.Errorf("%w: %s: found pulses at %d state-of-charge level(s), need at least %d (pulses must start from a rest of at least %g s; rest means |current| < %.3g A)",
+			ErrData, rec.Name, len(groups), s.MinLevels, s.MinRest, restA)
+	}
+	var allT []float64
+	for li, g := range groups {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		var ws []Window
+		for _, i := range g {
+			wins[i].Level = li
+			ws = append(ws, wins[i])
+		}
+		lv, err := fitLevel(&rec, z, ocv, ws, s.Branches, s.MaxIterations, restA)
+		if err != nil {
+			return nil, fmt.Errorf("%s: level at SOC %.3f: %w", rec.Name, wins[g[0]].SOC0, err)
+		}
+		for _, w := range ws {
+			allT = append(allT, rec.Temperature[w.Start:w.End]...)
+		}
+		res.Levels = append(res.Levels, lv)
+		if s.Progress != nil {
+			s.Progress(Progress{Stage: "pulse", Name: rec.Name, Done: li + 1, Total: len(groups)})
+		}
+	}
+	res.Windows = wins
+	res.TemperatureK = median(allT)
+	return res, nil
+}
+
+// tauGrid is the logarithmic grid of candidate time constants, s.
+var tauGrid = func() []float64 {
+	var g []float64
+	for e := -0.5; e <= 3.51; e += 0.25 {
+		g = append(g, math.Pow(10, e))
+	}
+	return g
+}()
+
+// longestActive returns the longest stretch, in seconds, of consecutive non-rest samples
+// in the windows.
+func longestActive(rec *Record, ws []Window, restA float64) float64 {
+	longest := 0.0
+	for _, w := range ws {
+		run := 0.0
+		for k := w.Start + 1; k < w.End; k++ {
+			if math.Abs(rec.Current[k]) >= restA {
+				run += rec.Time[k] - rec.Time[k-1]
+				longest = math.Max(longest, run)
+			} else {
+				run = 0
+			}
+		}
+	}
+	return longest
+}
+
+func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIter int, restA float64) (Level, error) {
+	m := &pulseModel{rec: rec, z: z, ocv: ocv, windows: ws, rest: restA}
+	var lv Level
+	var num, den, wz, wsum float64
+	var temps []float64
+	for _, w := range ws {
+		m.n += w.End - w.Start - 1
+		for k := w.Start + 1; k < w.End; k++ {
+			di := rec.Current[k] - rec.Current[k-1]
+			if math.Abs(di) > 0.2*math.Max(math.Abs(rec.Current[k]), math.Abs(rec.Current[k-1])) && math.Abs(di) > 1e-9 {
+				num -= (rec.Voltage[k] - rec.Voltage[k-1]) * di
+				den += di * di
+			}
+			q := math.Abs(rec.Current[k]) * (rec.Time[k] - rec.Time[k-1])
+			wz += q * z[k]
+			wsum += q
+			temps = append(temps, rec.Temperature[k])
+		}
+	}
+	lv.Windows = len(ws)
+	lv.Samples = m.n
+	lv.TemperatureK = median(temps)
+	if wsum > 0 {
+		lv.SOC = wz / wsum
+	} else {
+		lv.SOC = ws[0].SOC0
+	}
+	if den > 0 {
+		lv.R0Step = num / den
+	}
+	if m.n < 3*(1+2*nb) {
+		return lv, fmt.Errorf("%w: %d samples are too few for %d parameters", ErrData, m.n, 1+2*nb)
+	}
+
+	// Time constants are bounded: below by 0.1 s, above by ten times the longest
+	// stretch of current in the level (at most 3000 s). A branch much slower than the
+	// pulses that excite it has its amplitude (charge/C) identified but not its
+	// resistance, which would then extrapolate wildly under a sustained load.
+	tauMin, tauMax := 0.1, math.Min(3000, 10*math.Max(longestActive(rec, ws, m.rest), 1))
+	// Grid search over time constants with linear least squares for the resistances.
+	cols := make([][]float64, nb+1)
+	for j := range cols {
+		cols[j] = make([]float64, m.n)
+	}
+	y := make([]float64, m.n)
+	best := math.Inf(1)
+	var bt, br []float64
+	taus := make([]float64, nb)
+	var grid []float64
+	for _, g := range tauGrid {
+		if g >= tauMin*1.01 && g <= tauMax/1.01 {
+			grid = append(grid, g)
+		}
+	}
+	var try func(j, from int)
+	try = func(j, from int) {
+		if j == nb {
+			ssr, r := m.linearFit(taus, cols, y)
+			if r != nil && ssr < best {
+				best, bt, br = ssr, append([]float64(nil), taus...), r
+			}
+			return
+		}
+		for g := from; g < len(grid); g++ {
+			taus[j] = grid[g]
+			try(j+1, g+2) // τ₂ at least ~3× τ₁
+		}
+	}
+	try(0, 0)
+	if bt == nil {
+		return lv, fmt.Errorf("%w: no admissible starting point for the RC fit", ErrData)
+	}
+	// Parameters: ln R0, then per branch ln Rⱼ and uⱼ with
+	// ln τⱼ = ln τmin + (ln τmax − ln τmin)·σ(uⱼ), σ the logistic function, which keeps
+	// τ inside its bounds. A resistance the linear fit put at zero starts small.
+	la, lb := math.Log(tauMin), math.Log(tauMax)
+	tauOf := func(u float64) float64 { return math.Exp(la + (lb-la)/(1+math.Exp(-u))) }
+	uOf := func(tau float64) float64 {
+		f := (math.Log(tau) - la) / (lb - la)
+		f = math.Min(math.Max(f, 1e-6), 1-1e-6)
+		return math.Log(f / (1 - f))
+	}
+	floor := 1e-4 * math.Max(br[0], 1e-6)
+	x0 := []float64{math.Log(math.Max(br[0], floor))}
+	for j := range nb {
+		x0 = append(x0, math.Log(math.Max(br[j+1], floor)), uOf(bt[j]))
+	}
+	rs := make([]float64, nb)
+	ts := make([]float64, nb)
+	unpack := func(x []float64) float64 {
+		for j := range nb {
+			rs[j] = math.Exp(x[1+2*j])
+			ts[j] = tauOf(x[2+2*j])
+		}
+		return math.Exp(x[0])
+	}
+	pr := lsq{n: m.n, p: len(x0), resid: func(dst, x []float64) {
+		r0 := unpack(x)
+		m.residuals(dst, r0, rs, ts)
+	}}
+	sol, err := levenbergMarquardt(pr, x0, maxIter)
+	if err != nil {
+		return lv, err
+	}
+	x := sol.X
+	p := len(x)
+	iv := func(idx int, f func(float64) float64) Interval {
+		v := f(x[idx])
+		if sol.Cov == nil || !(sol.Cov[idx*p+idx] >= 0) {
+			return Interval{v, math.NaN(), math.NaN()}
+		}
+		sd := math.Sqrt(sol.Cov[idx*p+idx])
+		return Interval{v, f(x[idx] - 1.96*sd), f(x[idx] + 1.96*sd)}
+	}
+	lv.R0 = iv(0, math.Exp)
+	type br2 struct{ r, t Interval }
+	var bs []br2
+	for j := range nb {
+		bs = append(bs, br2{iv(1+2*j, math.Exp), iv(2+2*j, tauOf)})
+	}
+	sort.Slice(bs, func(a, b int) bool { return bs[a].t.Value < bs[b].t.Value })
+	for _, b := range bs {
+		lv.R = append(lv.R, b.r)
+		lv.Tau = append(lv.Tau, b.t)
+	}
+	lv.TauMax = tauMax
+	resid := make([]float64, m.n)
+	pr.resid(resid, x)
+	for _, e := range resid {
+		lv.Max = math.Max(lv.Max, math.Abs(e))
+	}
+	lv.RMSE = math.Sqrt(sumSq(resid) / float64(m.n))
+	return lv, nil
+}
