@@ -47,8 +47,8 @@ type Settings struct {
 
 // Result is the outcome of [Fit].
 type Result struct {
-	Type   *cell.Type    // the fitted parameter set, validated
-	OCV    *OCVResult    // the low-rate OCV identification
+	Type   *cell.Type     // the fitted parameter set, validated
+	OCV    *OCVResult     // the low-rate OCV identification
 	Pulses []*PulseResult // one per pulse test
 	// Refinement holds the drive-cycle scale factors when Settings.Refine was used.
 	Refinement *Refinement
