@@ -253,7 +253,10 @@ func TestBadInput(t *testing.T) {
 			return r
 		}, "is the current in mA"},
 		{"missing column", func() Record { r := clone(good); r.Voltage = nil; return r }, "different lengths"},
-		{"too short", func() Record { r := clone(good); return Record{Name: "x", Time: r.Time[:3], Current: r.Current[:3], Voltage: r.Voltage[:3], Temperature: r.Temperature[:3]} }, "3 samples, need at least 10"},
+		{"too short", func() Record {
+			r := clone(good)
+			return Record{Name: "x", Time: r.Time[:3], Current: r.Current[:3], Voltage: r.Voltage[:3], Temperature: r.Temperature[:3]}
+		}, "3 samples, need at least 10"},
 		{"celsius as kelvin", func() Record {
 			r := clone(good)
 			r.Temperature = make([]float64, len(r.Time))
