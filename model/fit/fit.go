@@ -2,7 +2,6 @@ package fit
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -23,8 +22,8 @@ type Problem struct {
 	// DriveCycles are optional dynamic records used to refine the resistances and
 	// capacitances (see Settings.Refine) and reported against.
 	DriveCycles []Record
-	// Base supplies what lab data cannot: chemistry, charge method, limits, and the
-	// nominal voltage when set. Nil selects generic lithium-ion limits (see
+	// Base supplies what lab data cannot: chemistry, charge method, coulombic
+	// efficiency and limits. Nil selects generic lithium-ion limits (see
 	// [LithiumLimits]). Base is not modified.
 	Base *cell.Type
 }
@@ -327,9 +326,6 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		}
 		typ.Limits = b.Limits
 		typ.CoulombicEfficiency = b.CoulombicEfficiency
-		if b.NominalVolts > 0 {
-			typ.NominalVolts = b.NominalVolts
-		}
 		typ.Sources = append(typ.Sources, b.Sources...)
 		notes = append(notes, fmt.Sprintf("limits from the base type %q", b.Name))
 	} else {
@@ -495,5 +491,3 @@ func pulseReport(r Record, typ *cell.Type, pr *PulseResult) FileReport {
 	}
 	return fr
 }
-
-var _ = errors.New
