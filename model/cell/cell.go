@@ -117,6 +117,12 @@ type Limits struct {
 // voltage, equivalent circuit and limits, all per cell. A Type is a value; once
 // validated, it must not be changed while packs use it. The JSON form is the parameter
 // file that the command-line tool reads and writes and the service stores.
+//
+// ChargeR0, when set, replaces R0 while the cell is charging (a direction-dependent
+// series resistance, common practice in equivalent-circuit fits). Lead-acid needs it: its
+// discharge resistance carries the rate effect and rises towards empty, while on charge
+// the resistance is small until the acceptance overpotential (gassing) rises towards
+// full. Nil means R0 in both directions.
 type Type struct {
 	Name                string         `json:"name"`
 	Description         string         `json:"description,omitempty"`
@@ -126,6 +132,7 @@ type Type struct {
 	NominalVolts        float64        `json:"nominal_voltage_volts"` // nominal voltage, V
 	OCV                 *table.Surface `json:"ocv"`                   // OCV(z, T) in V
 	R0                  Param          `json:"series_resistance_ohms"`
+	ChargeR0            *Param         `json:"charge_series_resistance_ohms,omitempty"` // R0 on charge if set, see above
 	Branches            []Branch       `json:"rc_branches,omitempty"`
 	CoulombicEfficiency float64        `json:"coulombic_efficiency,omitempty"` // on charge, (0, 1]; 0 means 1
 	Hysteresis          Hysteresis     `json:"hysteresis,omitempty"`
@@ -244,6 +251,11 @@ func (t *Type) Validate() error {
 	}
 	if err := checkParam("series_resistance_ohms", &t.R0, false); err != nil {
 		return err
+	}
+	if t.ChargeR0 != nil {
+		if err := checkParam("charge_series_resistance_ohms", t.ChargeR0, false); err != nil {
+			return err
+		}
 	}
 	if len(t.Branches) > MaxBranches {
 		return Invalid("rc_branches", "at most %d RC branches, got %d", MaxBranches, len(t.Branches))

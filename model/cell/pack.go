@@ -97,9 +97,14 @@ func (p Pack) PackResistance(z, tk float64) float64 {
 }
 
 // CellVoltage returns the terminal voltage of one cell carrying cell current ic (A) at
-// state s and temperature tk (K).
+// state s and temperature tk (K). On charge (ic < 0) the series resistance is the
+// type's [Type.ChargeR0] when it has one.
 func (p Pack) CellVoltage(s *State, ic, tk float64) float64 {
-	v := p.OCV(s, tk) - p.R0(s.SOC, tk)*ic
+	r0 := p.R0(s.SOC, tk)
+	if ic < 0 && p.Type.ChargeR0 != nil {
+		r0 = p.Type.ChargeR0.At(s.SOC, tk) * p.resFactor()
+	}
+	v := p.OCV(s, tk) - r0*ic
 	for k := range p.Type.Branches {
 		v -= s.V[k]
 	}

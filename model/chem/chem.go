@@ -335,6 +335,32 @@ func peukertR0(ocv *table.Surface, vcut, capAh, hours, k, r1, rmin, ea float64) 
 	return surface(leadRSOC, leadRCelsius, rows)
 }
 
+// chargeR0 tabulates the lead-acid series resistance on charge ([cell.Type.ChargeR0]).
+// On charge the rate effect of discharge is absent, and what limits the current is the
+// acceptance (gassing) overpotential near full, which a plain equivalent circuit lacks.
+// It is built from an acceptance curve: at the absorption voltage vabs the cell accepts
+// I(z) = 0.2·C·10^(−(z − 0.82)/0.17), i.e. 0.2 C at 82 % SOC falling tenfold by 99 %,
+// so that a bulk charge at 0.1–0.3 C meets the absorption voltage near 75–90 % SOC and
+// the absorption taper to 0.02 C then takes about 3–4 h [assumed, typical of the trade;
+// shaped to REFERENCE.md §1a: bulk at 0.1–0.3 C, absorption until I < 0.01–0.03 C or
+// 2–4 h, from memory]. The resistance is what makes that current flow,
+// R(z) = (vabs − OCV(z))/I(z) − r1, but never below the ohmic rmin. Rows at other
+// temperatures scale by the same Arrhenius factor as the discharge resistance.
+func chargeR0(ocv *table.Surface, vabs, capAh, r1, rmin, ea float64) *cell.Param {
+	soc := []float64{0, 0.6, 0.7, 0.75, 0.8, 0.85, 0.9, 0.95, 1}
+	rows := make([][]float64, len(leadRCelsius))
+	for j, c := range leadRCelsius {
+		f := math.Exp(ea / cell.GasConstant * (1/cell.Kelvin(c) - 1/cell.RefKelvin))
+		row := make([]float64, len(soc))
+		for i, z := range soc {
+			cur := 0.2 * capAh * math.Pow(10, -(z-0.82)/0.17)
+			row[i] = math.Max(rmin, (vabs-ocv.At(z, cell.RefKelvin))/cur-r1) * f
+		}
+		rows[j] = row
+	}
+	return &cell.Param{Table: surface(soc, leadRCelsius, rows)}
+}
+
 func vrlaCell() *cell.Type {
 	ocv := curve25(decile, leadOCV)
 	const (
@@ -355,8 +381,9 @@ func vrlaCell() *cell.Type {
 		OCV:          ocv, // [source: BCI] ÷ 6
 		// Peukert-type rate effect through the resistance (k from memory), see peukertR0.
 		R0:                  cell.Param{Table: peukertR0(ocv, vcut, capAh, 20, k, r1, rmin, ea)},
-		Branches:            []cell.Branch{rc(r1, 100)}, // polarisation [assumed, typical of the trade]
-		CoulombicEfficiency: 0.92,                       // lower near top of charge for lead-acid [from memory, §2.2]; value assumed
+		ChargeR0:            chargeR0(ocv, 2.40, capAh, r1, rmin, ea), // on charge: acceptance, see chargeR0
+		Branches:            []cell.Branch{rc(r1, 100)},               // polarisation [assumed, typical of the trade]
+		CoulombicEfficiency: 0.92,                                     // lower near top of charge for lead-acid [from memory, §2.2]; value assumed
 		Limits: cell.Limits{
 			ChargeVolts:         2.40,   // absorption [source: BU-LA]; 2.40–2.45 [from memory]
 			FloatVolts:          2.27,   // VRLA float 2.25–2.30 [2.30 example: source: BU-LA; range from memory]
@@ -395,7 +422,8 @@ func floodedCell() *cell.Type {
 		NominalVolts: 2.0, // [source: BCI]
 		OCV:          ocv, // [source: BCI] ÷ 6
 		R0:           cell.Param{Table: peukertR0(ocv, vcut, capAh, 20, k, r1, rmin, ea)},
-		Branches:     []cell.Branch{rc(r1, 100)}, // [assumed, typical of the trade]
+		ChargeR0:     chargeR0(ocv, 2.40, capAh, r1, rmin, ea), // on charge: acceptance, see chargeR0
+		Branches:     []cell.Branch{rc(r1, 100)},               // [assumed, typical of the trade]
 		// Lower near top of charge [from memory, §2.2]; value assumed.
 		CoulombicEfficiency: 0.90,
 		Limits: cell.Limits{
