@@ -425,6 +425,9 @@ func TestRejects(t *testing.T) {
 // beyond what validating its cell type does (cell.Type.Validate builds some field
 // names as it goes).
 func TestNoAllocs(t *testing.T) {
+	if raceEnabled {
+		t.Skip("the race detector changes allocation counts")
+	}
 	for _, typ := range []*cell.Type{idealType(t), twoRC(t)} {
 		prob := problem(typ, 1, sim.ConstantCurrent(1.2))
 		base := testing.AllocsPerRun(20, func() { _ = typ.Validate() })
