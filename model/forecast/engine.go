@@ -51,7 +51,7 @@ type point struct {
 }
 
 func (g *engine) eval(s *cell.State, sg sim.Segment) point {
-	e, r := g.c.Thevenin(s)
+	e, r := g.c.Thevenin(s, sg.Charges())
 	i, err := sim.Draw(sg.Kind, sg.Value, e, r)
 	if err != nil {
 		return point{e: e, r: r, i: e / (2 * r), v: e / 2}

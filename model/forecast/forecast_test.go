@@ -244,7 +244,7 @@ func TestStatuses(t *testing.T) {
 		if c.want == StatusPowerLimit {
 			// The last deliverable instant is just short of the maximum-power point, where
 			// v = E/2; Draw fails just beyond it.
-			e, r := c.prob.Circuit().Thevenin(&res.Final)
+			e, r := c.prob.Circuit().Thevenin(&res.Final, false)
 			if pmax := e * e / (4 * r); math.Abs(pmax/8-1) > 1e-3 {
 				t.Errorf("%s: at the stop the pack could deliver %g W; want just about 8 W", c.name, pmax)
 			}

@@ -21,16 +21,29 @@ type Circuit struct {
 
 // Thevenin returns the pack's source voltage e (V) and series resistance r (Ω) at state
 // s, so that the terminal voltage at pack current i is e − r·i. The source voltage is
-// S·(OCV + h − Σvₖ) and the resistance R0·S/P.
-func (c Circuit) Thevenin(s *cell.State) (e, r float64) {
+// S·(OCV + h − Σvₖ) and the resistance R0·S/P, or ChargeR0·S/P when charging is true
+// and the type has a separate series resistance on charge (as [cell.Pack.CellVoltage]).
+func (c Circuit) Thevenin(s *cell.State, charging bool) (e, r float64) {
 	p := c.Pack
 	ec := p.OCV(s, c.Kelvin)
 	for k := range p.Type.Branches {
 		ec -= s.V[k]
 	}
+	r0 := p.R0(s.SOC, c.Kelvin)
+	if charging && p.Type.ChargeR0 != nil {
+		rf := p.ResistanceFactor
+		if rf == 0 {
+			rf = 1
+		}
+		r0 = p.Type.ChargeR0.At(s.SOC, c.Kelvin) * rf
+	}
 	ns := float64(p.Series)
-	return ec * ns, p.R0(s.SOC, c.Kelvin) * ns / float64(p.Parallel)
+	return ec * ns, r0 * ns / float64(p.Parallel)
 }
+
+// Charges reports whether the segment's demand charges the pack (a negative current or
+// power); a resistance always discharges it.
+func (sg Segment) Charges() bool { return sg.Kind != Resistance && sg.Value < 0 }
 
 // Draw returns the pack current (A, positive = discharge) that a demand of the given
 // kind and value draws from a Thevenin source e (V) behind r (Ω), exactly: see the
@@ -65,7 +78,7 @@ func Draw(kind Kind, value, e, r float64) (float64, error) {
 
 // Current returns the pack current (A) the demand draws at state s. See [Draw].
 func (c Circuit) Current(s *cell.State, kind Kind, value float64) (float64, error) {
-	e, r := c.Thevenin(s)
+	e, r := c.Thevenin(s, Segment{Kind: kind, Value: value}.Charges())
 	return Draw(kind, value, e, r)
 }
 

@@ -12,7 +12,8 @@
 //
 // Within a step the pack is a Thevenin source: terminal voltage v = E − R·i, where E is
 // the pack's open-circuit voltage less its RC branch voltages (plus hysteresis) and R its
-// series resistance, both taken from the state. The current a demand draws is then exact
+// series resistance (the charge-side one when a demand charges a type that has one), both
+// taken from the state. The current a demand draws is then exact
 // for that state: the value itself for a current; i = E/(R + Rₗ) for a resistance Rₗ;
 // and for a power P the smaller root of R·i² − E·i + P = 0, the one that joins i = 0 at
 // P = 0 (the other root is the far side of the maximum-power point). A power above

@@ -193,7 +193,7 @@ func Run(dst []Sample, prob *Problem, settings *Settings) (Result, error) {
 	// returns the sample for this instant.
 	stop := func(t float64) (Status, Sample) {
 		sg := cur.Segment()
-		e, r := c.Thevenin(s)
+		e, r := c.Thevenin(s, sg.Charges())
 		i, err := Draw(sg.Kind, sg.Value, e, r)
 		smp := Sample{Time: t, SOC: s.SOC, RC: s.V}
 		if err != nil {
@@ -226,13 +226,13 @@ func Run(dst []Sample, prob *Problem, settings *Settings) (Result, error) {
 		next := math.Min(math.Min(segEnd, set.Horizon), math.Min(float64(nout)*set.Interval, t+set.Step))
 		sg := cur.Segment()
 		dt := next - t
-		e0, r0 := c.Thevenin(s)
+		e0, r0 := c.Thevenin(s, sg.Charges())
 		i, err := c.Advance(s, sg.Kind, sg.Value, dt)
 		if err != nil {
 			st = StatusPowerLimit
 			break
 		}
-		e1, r1 := c.Thevenin(s)
+		e1, r1 := c.Thevenin(s, sg.Charges())
 		res.Steps++
 		res.AmpHours += i * dt / 3600
 		res.WattHours += i * dt * ((e0 - r0*i) + (e1 - r1*i)) / 2 / 3600

@@ -328,3 +328,20 @@ func TestCursorRepeats(t *testing.T) {
 		t.Errorf("a finite load's cursor moved past its last segment")
 	}
 }
+
+// TestTheveninMatchesCell checks that the source form e − r·i gives the terminal voltage
+// of cell.Pack.Voltage in both directions, with and without a charge-side resistance.
+func TestTheveninMatchesCell(t *testing.T) {
+	typ := *tableType(t)
+	for _, chargeR0 := range []*cell.Param{nil, {Value: 0.08}} {
+		typ.ChargeR0 = chargeR0
+		c := Circuit{Pack: cell.Pack{Type: &typ, Series: 3, Parallel: 2, ResistanceFactor: 1.5}, Kelvin: cell.Kelvin(25)}
+		s := cell.State{SOC: 0.37, V: [cell.MaxBranches]float64{0.02, 0.01}}
+		for _, i := range []float64{5, -5} {
+			e, r := c.Thevenin(&s, i < 0)
+			if got, want := e-r*i, c.Pack.Voltage(&s, i, c.Kelvin); math.Abs(got-want) > 1e-12 {
+				t.Errorf("ChargeR0 %v, i = %g A: e − r·i = %.12f; Pack.Voltage = %.12f", chargeR0, i, got, want)
+			}
+		}
+	}
+}
