@@ -36,6 +36,11 @@ type Settings struct {
 	// each pulse-test temperature is moved through the pulse test's rested voltages
 	// (see [Fit]).
 	NoRestAnchoring bool
+	// ActivationEnergy (J/mol) extends the resistance tables beyond the tested
+	// temperatures when the pulse tests cover only one. 0 means the base type's R0
+	// activation energy, and none without a base type. With two or more tested
+	// temperatures the value is measured from the data instead.
+	ActivationEnergy float64
 	// Refine enables the drive-cycle refinement when DriveCycles are given.
 	Refine bool
 	// Sim is used for the drive-cycle reports and refinement.
@@ -141,7 +146,14 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 		res.Pulses = append(res.Pulses, pr)
 	}
 	ps := s.Pulse.defaults()
-	typ, notes, err := assemble(p, ocv, base, res.Pulses, ps.Branches, !s.NoRestAnchoring)
+	ea := s.ActivationEnergy
+	if ea == 0 && p.Base != nil {
+		ea = p.Base.R0.ActivationEnergy
+	}
+	if !(ea >= 0 && ea <= 200e3) {
+		return nil, fmt.Errorf("fit: activation energy must be in [0, 200000] J/mol, got %g", ea)
+	}
+	typ, notes, err := assemble(p, ocv, base, res.Pulses, ps.Branches, !s.NoRestAnchoring, ea)
 	if err != nil {
 		return nil, err
 	}
@@ -205,7 +217,7 @@ func groupByTemperature(prs []*PulseResult) []tempGroup {
 }
 
 // assemble builds the cell type from the identified pieces.
-func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult, nb int, anchor bool) (*cell.Type, []string, error) {
+func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult, nb int, anchor bool, ea float64) (*cell.Type, []string, error) {
 	gs := groupByTemperature(prs)
 	var notes []string
 	notes = append(notes, fmt.Sprintf("capacity %.4g Ah from the low-rate discharge (%s)", ocv.CapacityAh, p.OCVTest.Name))
@@ -270,7 +282,7 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 	for _, g := range gs {
 		ptemps = append(ptemps, g.tk)
 	}
-	param := func(get func(l Level) float64) (*table.Surface, error) {
+	levelRows := func(get func(l Level) float64) [][]float64 {
 		vals := make([][]float64, len(gs))
 		for j, g := range gs {
 			lz := make([]float64, len(g.levels))
@@ -280,6 +292,80 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 			}
 			vals[j] = interpHold(lz, lv, grid)
 		}
+		return vals
+	}
+	// Temperature extension: resistances follow the Arrhenius law beyond the tested
+	// temperatures (capacitances are held), with the activation energy measured between
+	// the two outermost rows at that end, or Settings.ActivationEnergy / the base type's
+	// when only one temperature was tested.
+	total := func(j int, vals [][][]float64) float64 {
+		var s float64
+		for _, v := range vals {
+			for _, x := range v[j] {
+				s += math.Log(math.Max(x, 1e-12))
+			}
+		}
+		return s / float64(len(vals)*len(grid))
+	}
+	resVals := [][][]float64{levelRows(func(l Level) float64 { return l.R0.Value })}
+	for j := range nb {
+		resVals = append(resVals, levelRows(func(l Level) float64 { return l.R[j].Value }))
+	}
+	var capVals [][][]float64
+	for j := range nb {
+		capVals = append(capVals, levelRows(func(l Level) float64 { return l.Tau[j].Value / l.R[j].Value }))
+	}
+	eaLow, eaHigh := ea, ea
+	if n := len(ptemps); n >= 2 {
+		lnRatio := func(a, b int) float64 {
+			return cell.GasConstant * (total(a, resVals) - total(b, resVals)) / (1/ptemps[a] - 1/ptemps[b])
+		}
+		eaLow = math.Min(math.Max(lnRatio(0, 1), 0), 100e3)
+		eaHigh = math.Min(math.Max(lnRatio(n-2, n-1), 0), 100e3)
+	}
+	if eaLow > 0 || eaHigh > 0 {
+		var lowT, highT []float64
+		for _, d := range []float64{20, 10} {
+			if t := ptemps[0] - d; t > 213.15 && eaLow > 0 {
+				lowT = append(lowT, t)
+			}
+		}
+		for _, d := range []float64{10, 20} {
+			if t := ptemps[len(ptemps)-1] + d; t < 373.15 && eaHigh > 0 {
+				highT = append(highT, t)
+			}
+		}
+		extend := func(vals [][]float64, resistance bool) [][]float64 {
+			var out [][]float64
+			for _, t := range lowT {
+				f := 1.0
+				if resistance {
+					f = math.Exp(eaLow / cell.GasConstant * (1/t - 1/ptemps[0]))
+				}
+				out = append(out, scaled(vals[0], f))
+			}
+			out = append(out, vals...)
+			top := vals[len(vals)-1]
+			for _, t := range highT {
+				f := 1.0
+				if resistance {
+					f = math.Exp(eaHigh / cell.GasConstant * (1/t - 1/ptemps[len(ptemps)-1]))
+				}
+				out = append(out, scaled(top, f))
+			}
+			return out
+		}
+		for i := range resVals {
+			resVals[i] = extend(resVals[i], true)
+		}
+		for i := range capVals {
+			capVals[i] = extend(capVals[i], false)
+		}
+		ptemps = append(append(lowT, ptemps...), highT...)
+		notes = append(notes, fmt.Sprintf("resistances extended beyond the tested temperatures by the Arrhenius law: %.0f kJ/mol below, %.0f kJ/mol above (%s)",
+			eaLow/1e3, eaHigh/1e3, eaSource(len(gs), ea)))
+	}
+	param := func(vals [][]float64) (*table.Surface, error) {
 		return table.NewSurface(grid, ptemps, vals)
 	}
 	typ := &cell.Type{
@@ -291,15 +377,15 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 	if typ.Name == "" {
 		typ.Name = "fitted"
 	}
-	if typ.R0.Table, err = param(func(l Level) float64 { return l.R0.Value }); err != nil {
+	if typ.R0.Table, err = param(resVals[0]); err != nil {
 		return nil, nil, fmt.Errorf("fit: R0 table: %w", err)
 	}
 	for j := range nb {
 		var b cell.Branch
-		if b.R.Table, err = param(func(l Level) float64 { return l.R[j].Value }); err != nil {
+		if b.R.Table, err = param(resVals[1+j]); err != nil {
 			return nil, nil, fmt.Errorf("fit: R%d table: %w", j+1, err)
 		}
-		if b.C.Table, err = param(func(l Level) float64 { return l.Tau[j].Value / l.R[j].Value }); err != nil {
+		if b.C.Table, err = param(capVals[j]); err != nil {
 			return nil, nil, fmt.Errorf("fit: C%d table: %w", j+1, err)
 		}
 		typ.Branches = append(typ.Branches, b)
@@ -338,6 +424,21 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+r.Name)
 	}
 	return typ, notes, nil
+}
+
+func scaled(v []float64, f float64) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = x * f
+	}
+	return out
+}
+
+func eaSource(temps int, ea float64) string {
+	if temps >= 2 {
+		return "measured between the outermost tested temperatures"
+	}
+	return fmt.Sprintf("one tested temperature: %.0f kJ/mol from the settings or the base type, not measured on this cell", ea/1e3)
 }
 
 // restCorrection returns the OCV correction δ(z) through the rest points (median per

@@ -90,8 +90,13 @@ type Level struct {
 
 // RestPoint is a rested terminal voltage, taken as an open-circuit voltage sample.
 type RestPoint struct {
-	SOC, Volts, TemperatureK float64
-	RestSeconds              float64
+	SOC, TemperatureK float64
+	// Volts is the OCV estimate: the measured voltage plus what the fitted RC branches
+	// still held at that moment (Unrelaxed), since a rest of minutes does not relax a
+	// branch with a time constant of minutes.
+	Volts, Measured, Unrelaxed float64
+	RestSeconds                float64
+	window                     int
 }
 
 // PulseResult is what [Pulses] identifies from one pulse test.
@@ -402,7 +407,8 @@ func Pulses(ctx context.Context, rec Record, ocv *table.Curve, q float64, settin
 		}
 		wins = append(wins, Window{Start: st.k, End: end, SOC0: z[st.k]})
 		if st.restSecs >= s.OCVRest && !st.afterGap {
-			res.Rests = append(res.Rests, RestPoint{SOC: z[st.k], Volts: rec.Voltage[st.k], TemperatureK: rec.Temperature[st.k], RestSeconds: st.restSecs})
+			res.Rests = append(res.Rests, RestPoint{SOC: z[st.k], Volts: rec.Voltage[st.k], Measured: rec.Voltage[st.k],
+				TemperatureK: rec.Temperature[st.k], RestSeconds: st.restSecs, window: len(wins) - 1})
 		}
 	}
 	// Group into levels.
@@ -445,7 +451,33 @@ func Pulses(ctx context.Context, rec Record, ocv *table.Curve, q float64, settin
 	}
 	res.Windows = wins
 	res.TemperatureK = median(allT)
+	// Correct each rest point for the branch voltages the previous window's fitted
+	// model still holds at its end (the rested sample).
+	for i := range res.Rests {
+		rp := &res.Rests[i]
+		wi := rp.window
+		if wi == 0 || wins[wi-1].End-1 != wins[wi].Start {
+			continue
+		}
+		prev := wins[wi-1]
+		rp.Unrelaxed = branchVoltsAtEnd(&rec, prev, res.Levels[prev.Level])
+		rp.Volts = rp.Measured + rp.Unrelaxed
+	}
 	return res, nil
+}
+
+// branchVoltsAtEnd simulates the RC branches of level lv through window w from rest and
+// returns their summed voltage at the window's last sample.
+func branchVoltsAtEnd(rec *Record, w Window, lv Level) float64 {
+	var v [2]float64
+	for k := w.Start + 1; k < w.End; k++ {
+		dt := rec.Time[k] - rec.Time[k-1]
+		for j := range lv.R {
+			a := math.Exp(-dt / lv.Tau[j].Value)
+			v[j] = a*v[j] + lv.R[j].Value*(1-a)*rec.Current[k]
+		}
+	}
+	return v[0] + v[1]
 }
 
 // tauGrid is the logarithmic grid of candidate time constants, s.

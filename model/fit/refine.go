@@ -71,13 +71,16 @@ func Refine(ctx context.Context, t *cell.Type, recs []Record, settings *RefineSe
 		names = append(names, fmt.Sprintf("R%d", j+1), fmt.Sprintf("C%d", j+1))
 	}
 	p := len(names)
+	// Factors are kept within e^±4 (×0.018 to ×55): a trial step beyond is clamped,
+	// which keeps every table finite.
+	factor := func(v float64) float64 { return math.Exp(math.Min(math.Max(v, -4), 4)) }
 	build := func(x []float64) *cell.Type {
 		nt := *t
-		nt.R0.Table = scaleSurface(t.R0.Table, math.Exp(x[0]))
+		nt.R0.Table = scaleSurface(t.R0.Table, factor(x[0]))
 		nt.Branches = make([]cell.Branch, len(t.Branches))
 		for j, b := range t.Branches {
-			nt.Branches[j].R.Table = scaleSurface(b.R.Table, math.Exp(x[1+2*j]))
-			nt.Branches[j].C.Table = scaleSurface(b.C.Table, math.Exp(x[2+2*j]))
+			nt.Branches[j].R.Table = scaleSurface(b.R.Table, factor(x[1+2*j]))
+			nt.Branches[j].C.Table = scaleSurface(b.C.Table, factor(x[2+2*j]))
 		}
 		return &nt
 	}
@@ -134,7 +137,7 @@ func Refine(ctx context.Context, t *cell.Type, recs []Record, settings *RefineSe
 	}
 	out := &Refinement{Names: names, Before: before, After: math.Sqrt(sol.SSR / float64(n)), Type: build(x)}
 	for j := range p {
-		iv := Interval{math.Exp(x[j]), math.NaN(), math.NaN()}
+		iv := Interval{factor(x[j]), math.NaN(), math.NaN()}
 		if sol.Cov != nil && sol.Cov[j*p+j] >= 0 {
 			sd := math.Sqrt(sol.Cov[j*p+j])
 			iv.Low, iv.High = math.Exp(x[j]-1.96*sd), math.Exp(x[j]+1.96*sd)
