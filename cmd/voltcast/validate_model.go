@@ -6,8 +6,8 @@ import (
 	"math"
 	"path/filepath"
 	"regexp"
-	"strconv"
 	"sort"
+	"strconv"
 	"strings"
 
 	"github.com/voltcast/voltcast/labdata"
