@@ -135,14 +135,16 @@ type pulseModel struct {
 	z       []float64 // SOC per sample
 	ocv     *table.Curve
 	windows []Window
-	n       int     // residual count
-	rest    float64 // rest current threshold, A
+	n       int       // residual count
+	rest    float64   // rest current threshold, A
+	ocvd    []float64 // OCV(z[k]) for the samples of the windows (others unset)
 }
 
 // residuals writes v̂ − v for the parameters r0, rs, taus into dst.
 func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
 	rec := m.rec
-	var vb [2]float64
+	var vb, av [2]float64
+	lastDt := math.NaN()
 	p := 0
 	for _, w := range m.windows {
 		vb = [2]float64{}
@@ -150,10 +152,16 @@ func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
 		base := rec.Voltage[s] - m.ocv.At(m.z[s])
 		for k := s + 1; k < w.End; k++ {
 			dt := rec.Time[k] - rec.Time[k-1]
+			if dt != lastDt { // uniform sampling repeats dt: reuse the decay factors
+				for j := range rs {
+					av[j] = math.Exp(-dt / taus[j])
+				}
+				lastDt = dt
+			}
 			i := rec.Current[k]
-			v := base + m.ocv.At(m.z[k]) - r0*i
+			v := base + m.ocvd[k] - r0*i
 			for j := range rs {
-				a := math.Exp(-dt / taus[j])
+				a := av[j]
 				vb[j] = a*vb[j] + rs[j]*(1-a)*i
 				v -= vb[j]
 			}
@@ -171,18 +179,25 @@ func (m *pulseModel) linearFit(taus []float64, cols [][]float64, y []float64) (f
 	rec := m.rec
 	nb := len(taus)
 	p := 0
-	var f [2]float64
+	var f, av [2]float64
+	lastDt := math.NaN()
 	for _, w := range m.windows {
 		f = [2]float64{}
 		s := w.Start
 		base := rec.Voltage[s] - m.ocv.At(m.z[s])
 		for k := s + 1; k < w.End; k++ {
 			dt := rec.Time[k] - rec.Time[k-1]
+			if dt != lastDt {
+				for j := range nb {
+					av[j] = math.Exp(-dt / taus[j])
+				}
+				lastDt = dt
+			}
 			i := rec.Current[k]
-			y[p] = base + m.ocv.At(m.z[k]) - rec.Voltage[k]
+			y[p] = base + m.ocvd[k] - rec.Voltage[k]
 			cols[0][p] = i
 			for j := range nb {
-				a := math.Exp(-dt / taus[j])
+				a := av[j]
 				f[j] = a*f[j] + (1-a)*i
 				cols[j+1][p] = f[j]
 			}
@@ -198,6 +213,16 @@ func nnls(cols [][]float64, y []float64) (float64, []float64) {
 	q := len(cols)
 	best := math.Inf(1)
 	var bx []float64
+	yy := dot(y, y)
+	var gram [3][3]float64
+	var cy [3]float64
+	for r := range q {
+		for c := r; c < q; c++ {
+			gram[r][c] = dot(cols[r], cols[c])
+			gram[c][r] = gram[r][c]
+		}
+		cy[r] = dot(cols[r], y)
+	}
 	for mask := 1; mask < 1<<q; mask++ {
 		var idx []int
 		for j := range q {
@@ -210,9 +235,9 @@ func nnls(cols [][]float64, y []float64) (float64, []float64) {
 		var b [3]float64
 		for r, jr := range idx {
 			for c, jc := range idx {
-				a[r][c] = dot(cols[jr], cols[jc])
+				a[r][c] = gram[jr][jc]
 			}
-			b[r] = dot(cols[jr], y)
+			b[r] = cy[jr]
 		}
 		x, ok := solveSmall(a, b, m)
 		if !ok {
@@ -231,13 +256,13 @@ func nnls(cols [][]float64, y []float64) (float64, []float64) {
 		for r, j := range idx {
 			full[j] = x[r]
 		}
-		var ssr float64
-		for k := range y {
-			e := -y[k]
-			for j := range q {
-				e += full[j] * cols[j][k]
+		// ‖Cx − y‖² = yᵀy − 2xᵀCᵀy + xᵀCᵀCx, from the Gram matrix already formed.
+		ssr := yy
+		for r := range m {
+			ssr -= 2 * x[r] * b[r]
+			for c := range m {
+				ssr += x[r] * a[r][c] * x[c]
 			}
-			ssr += e * e
 		}
 		if ssr < best {
 			best, bx = ssr, full
@@ -508,7 +533,12 @@ func longestActive(rec *Record, ws []Window, restA float64) float64 {
 }
 
 func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIter int, restA float64) (Level, error) {
-	m := &pulseModel{rec: rec, z: z, ocv: ocv, windows: ws, rest: restA}
+	m := &pulseModel{rec: rec, z: z, ocv: ocv, windows: ws, rest: restA, ocvd: make([]float64, rec.Len())}
+	for _, w := range ws {
+		for k := w.Start; k < w.End; k++ {
+			m.ocvd[k] = ocv.At(z[k])
+		}
+	}
 	var lv Level
 	var num, den, wz, wsum float64
 	var temps []float64
