@@ -25,7 +25,7 @@
 // at the start of the step each time (zero-order-hold steps of any length are as
 // accurate as the step they replace). The search ends when the cell voltage is within
 // Settings.VoltsTolerance of the cut-off (1 µV by default) or the bracket is shorter than
-// Settings.TimeTolerance (1 ms by default). At a segment boundary where the new segment
+// Settings.TimeTolerance (1 µs by default). At a segment boundary where the new segment
 // pulls the voltage below the cut-off at once, the stop is the boundary itself.
 //
 // A voltage that dips below the cut-off and recovers within a single step is not seen;
@@ -47,7 +47,8 @@
 //
 // # Termination
 //
-// Every run ends: at the cut-off, at the floor state of charge (0, empty, unless given),
+// Every run ends: at the cut-off, at the floor state of charge if one is given, empty
+// (state of charge 0: the model does not extrapolate the OCV below its table),
 // when a power demand exceeds what the pack can deliver, when a load that does not
 // repeat ends, at the horizon (1000 h by default), or after Settings.MaxSteps steps. A
 // load that pulls the pack below its cut-off at the start is reported as

@@ -80,6 +80,8 @@ func (g *engine) classify(s *cell.State, pt point) Status {
 		return StatusPowerLimit
 	case pt.i > 0 && pt.v/g.ns-g.cut <= s.SOC-g.floor:
 		return StatusCutoff
+	case g.floor == 0:
+		return StatusEmpty
 	}
 	return StatusSOCFloor
 }

@@ -71,7 +71,7 @@ type Settings struct {
 	// to it, in V (the same number bounds state of charge at the floor); 0 means 1e-6.
 	VoltsTolerance float64
 	// TimeTolerance ends the search when the crossing is bracketed this tightly, in s;
-	// 0 means 1e-3.
+	// 0 means 1e-6.
 	TimeTolerance float64
 	// TracePoints asks for a trace of that many samples evenly spaced from 0 to the
 	// stop (at least 2); 0 means no trace. A trace costs a second run.
@@ -87,7 +87,7 @@ const (
 	DefaultMaxVolts    = 0.02 // V per cell
 	DefaultMaxStep     = 3600.0
 	DefaultVoltsTol    = 1e-6
-	DefaultTimeTol     = 1e-3
+	DefaultTimeTol     = 1e-6
 	DefaultMaxSteps    = 10000000
 	MaxTracePoints     = 100000
 	maxHorizon         = 1e9 // s
@@ -142,12 +142,13 @@ type Status uint8
 // Forecast outcomes.
 const (
 	StatusCutoff      Status = iota + 1 // a cell reached the cut-off voltage
-	StatusSOCFloor                      // the state of charge reached the floor (or 0)
+	StatusSOCFloor                      // the state of charge reached Problem.SOCFloor
 	StatusPowerLimit                    // the pack could no longer deliver the load's power
 	StatusLoadEnded                     // a load that does not repeat ended first
 	StatusHorizon                       // the horizon passed first: does not reach cut-off
 	StatusStepLimit                     // Settings.MaxSteps ran out first
 	StatusCannotStart                   // the load takes the pack to or below the cut-off (or floor) at once
+	StatusEmpty                         // the state of charge reached 0 before the cut-off voltage (no floor given)
 )
 
 var statusText = [...]struct{ name, text string }{
@@ -158,12 +159,13 @@ var statusText = [...]struct{ name, text string }{
 	StatusHorizon:     {"horizon", "does not reach the cut-off within the horizon"},
 	StatusStepLimit:   {"step-limit", "stopped after the maximum number of steps"},
 	StatusCannotStart: {"cannot-start", "the load pulls the pack to or below its cut-off (or floor, or power limit) at once"},
+	StatusEmpty:       {"empty", "the cells emptied (0 % state of charge) before reaching the cut-off voltage"},
 }
 
-// String returns a short lowercase name: "cutoff", "soc-floor", "power-limit",
+// String returns a short lowercase name: "cutoff", "soc-floor", "empty", "power-limit",
 // "load-ended", "horizon", "step-limit" or "cannot-start".
 func (s Status) String() string {
-	if s >= StatusCutoff && s <= StatusCannotStart {
+	if s >= StatusCutoff && s <= StatusEmpty {
 		return statusText[s].name
 	}
 	return fmt.Sprintf("Status(%d)", uint8(s))
@@ -171,7 +173,7 @@ func (s Status) String() string {
 
 // Describe returns a sentence fragment that explains the status to a person.
 func (s Status) Describe() string {
-	if s >= StatusCutoff && s <= StatusCannotStart {
+	if s >= StatusCutoff && s <= StatusEmpty {
 		return statusText[s].text
 	}
 	return s.String()
@@ -180,10 +182,10 @@ func (s Status) Describe() string {
 // MarshalText encodes the status by its short name.
 func (s Status) MarshalText() ([]byte, error) { return []byte(s.String()), nil }
 
-// Reached reports whether the forecast ended at the cut-off or the floor, so that
-// Result.Seconds is a time to empty rather than a bound.
+// Reached reports whether the forecast ended at the cut-off, the floor, empty or the
+// power limit, so that Result.Seconds is a runtime rather than a lower bound.
 func (s Status) Reached() bool {
-	return s == StatusCutoff || s == StatusSOCFloor || s == StatusPowerLimit
+	return s == StatusCutoff || s == StatusSOCFloor || s == StatusEmpty || s == StatusPowerLimit
 }
 
 // Result is the outcome of [Run]. Voltages, currents, charge and energy are for the

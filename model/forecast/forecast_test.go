@@ -49,7 +49,7 @@ func idealType(t testing.TB) *cell.Type {
 // TestIdealRuntimeE1 checks ../shared/REFERENCE.md E1 (common practice): 2.4 Ah at
 // 1.2 A lasts 2.0 h in the ideal limit. The ideal cell reaches its cut-off somewhere in
 // the last 10⁻⁵ of its charge, so the forecast may fall short of 7200 s by up to
-// 10⁻⁵·7200 s = 0.072 s, plus the 1 ms time tolerance of the crossing search.
+// 10⁻⁵·7200 s = 0.072 s (plus the search tolerances, far smaller).
 func TestIdealRuntimeE1(t *testing.T) {
 	res, err := Run(nil, problem(idealType(t), 1, sim.ConstantCurrent(1.2)), nil)
 	if err != nil {
@@ -69,7 +69,7 @@ func TestIdealRuntimeE1(t *testing.T) {
 
 // TestFloorE8 stops at a floor state of charge and checks ../shared/REFERENCE.md E8:
 // Q = 2.5 Ah, z0 = 0.80, 1.0 A reaches z = 0.60 after 0.5 h = 1800 s, exactly for
-// coulomb counting (1e-12 in state of charge; the time to the 1 ms search tolerance).
+// coulomb counting (1e-12 in state of charge; the located time to 1 ms).
 func TestFloorE8(t *testing.T) {
 	typ := *idealType(t)
 	typ.CapacityAh = 2.5
@@ -216,6 +216,15 @@ func TestStatuses(t *testing.T) {
 		set  *Settings
 		want Status
 	}{"floor", floor, nil, StatusSOCFloor})
+	// A cut-off below the ideal cell's voltage when empty: it empties first.
+	empty := problem(idealType(t), 0.5, sim.ConstantCurrent(1.2))
+	empty.CellCutoffVolts = 1.5
+	cases = append(cases, struct {
+		name string
+		prob *Problem
+		set  *Settings
+		want Status
+	}{"empty", empty, nil, StatusEmpty})
 	// A cut-off below the voltage at maximum power: the power gives out first.
 	pl := problem(typ, 1, sim.ConstantPower(8))
 	pl.Pack.ResistanceFactor = 10
