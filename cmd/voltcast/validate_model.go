@@ -454,7 +454,7 @@ func writeVoltageSection(b *strings.Builder, rs []*cellResult) {
 	b.WriteString("## Voltage model: drive cycles and random profiles simulated from the true start\n\n")
 	b.WriteString("Each profile is simulated from its first sample, fully charged and rested (every profile of these datasets starts from full), driven by the measured current and cell temperature; " +
 		"the state of charge follows the current (the lab counter is not used). Metric: RMSE and largest absolute error of the terminal voltage over all samples, mV. " +
-		"Temperature = median measured cell temperature of the profile. Targets (issue 3): ≤ 15 mV at 25 °C, ≤ 30 mV at 0 °C and below. " +
+		"The target applies by the test (chamber) temperature; the median measured cell temperature is shown beside it. Targets (issue 3): ≤ 15 mV at 25 °C, ≤ 30 mV at 0 °C and below. " +
 		"pan18650pf profiles are 1-s block averages (PROVENANCE.md), so the model's interval-average voltage is compared.\n\n")
 	for _, r := range rs {
 		if len(r.voltage) == 0 {
