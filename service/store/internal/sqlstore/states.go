@@ -1,0 +1,112 @@
+package sqlstore
+
+import (
+	"bytes"
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/voltcast/voltcast/service/store"
+)
+
+const stateCols = `estimator, soc, soc_sigma, capacity_factor, resistance_factor, equivalent_cycles,
+	temperature_celsius, voltage_volts, current_amps, last_sequence, last_sample_time, update_time, version`
+
+// GetState implements [store.States].
+func (s *Store) GetState(ctx context.Context, tenant, batteryID string) (store.State, error) {
+	op := "get state of battery " + short(batteryID)
+	if err := precheck(ctx, tenant); err != nil {
+		return store.State{}, s.fail(ctx, op, err)
+	}
+	var st store.State
+	m := &st.Summary
+	err := s.read.QueryRowContext(ctx, `SELECT `+stateCols+` FROM battery_states
+		WHERE tenant = $1 AND battery_id = $2`, tenant, batteryID).Scan(
+		&st.Estimator, &m.SOC, &m.SOCSigma, &m.CapacityFactor, &m.ResistanceFactor, &m.EquivalentCycles,
+		&m.TemperatureCelsius, &m.VoltageVolts, &m.CurrentAmps, &st.Watermark.Sequence,
+		timeCol{&st.Watermark.Time}, timeCol{&st.UpdateTime}, &st.Version)
+	if errors.Is(err, sql.ErrNoRows) {
+		err = store.ErrNotFound
+	}
+	if err != nil {
+		return store.State{}, s.fail(ctx, op, err)
+	}
+	return st, nil
+}
+
+// PutState implements [store.States].
+func (s *Store) PutState(ctx context.Context, tenant, batteryID string, expectedVersion int64, st store.State) (int64, error) {
+	op := "put state of battery " + short(batteryID)
+	if err := precheck(ctx, tenant, checkExpected(expectedVersion), validateState(&st)); err != nil {
+		return 0, s.fail(ctx, op, err)
+	}
+	m, w := &st.Summary, st.Watermark
+	w.Time = normTime(w.Time)
+	args := []any{tenant, batteryID, bytes.Clone(st.Estimator), m.SOC, m.SOCSigma, m.CapacityFactor,
+		m.ResistanceFactor, m.EquivalentCycles, m.TemperatureCelsius, m.VoltageVolts, m.CurrentAmps,
+		w.Sequence, s.timeArg(w.Time), s.timeArg(now())}
+	var version int64
+	if expectedVersion == store.AnyVersion {
+		err := s.write.QueryRowContext(ctx, `
+			INSERT INTO battery_states (tenant, battery_id, `+stateCols+`)
+			VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, `+s.d.NextVersion+`)
+			ON CONFLICT DO NOTHING
+			RETURNING version`, args...).Scan(&version)
+		switch {
+		case errors.Is(err, sql.ErrNoRows):
+			return 0, s.fail(ctx, op, fmt.Errorf("%w: a state is already stored", store.ErrConflict))
+		case err != nil && s.d.IsForeignKeyViolation(err):
+			return 0, s.fail(ctx, op, fmt.Errorf("battery: %w", store.ErrNotFound))
+		case err != nil:
+			return 0, s.fail(ctx, op, err)
+		}
+		return version, nil
+	}
+	// One statement checks the version and the watermark and writes both.
+	args = append(args, expectedVersion)
+	err := s.write.QueryRowContext(ctx, `
+		UPDATE battery_states SET estimator = $3, soc = $4, soc_sigma = $5, capacity_factor = $6,
+			resistance_factor = $7, equivalent_cycles = $8, temperature_celsius = $9,
+			voltage_volts = $10, current_amps = $11, last_sequence = $12, last_sample_time = $13,
+			update_time = $14, version = `+s.d.NextVersion+`
+		WHERE tenant = $1 AND battery_id = $2 AND version = $15
+			AND last_sequence <= $12 AND (last_sample_time IS NULL OR last_sample_time <= $13)
+		RETURNING version`, args...).Scan(&version)
+	switch {
+	case errors.Is(err, sql.ErrNoRows):
+		return 0, s.fail(ctx, op, s.whyNoPut(ctx, tenant, batteryID, expectedVersion, w))
+	case err != nil:
+		return 0, s.fail(ctx, op, err)
+	}
+	return version, nil
+}
+
+// whyNoPut says why a state update matched no row.
+func (s *Store) whyNoPut(ctx context.Context, tenant, batteryID string, expected int64, w store.Watermark) error {
+	var (
+		version int64
+		seq     int64
+		t       time.Time
+	)
+	err := s.write.QueryRowContext(ctx, `SELECT version, last_sequence, last_sample_time FROM battery_states
+		WHERE tenant = $1 AND battery_id = $2`, tenant, batteryID).Scan(&version, &seq, timeCol{&t})
+	switch {
+	case errors.Is(err, sql.ErrNoRows):
+		ok, err := exists(ctx, s.write, `SELECT version FROM batteries WHERE tenant = $1 AND id = $2`, tenant, batteryID)
+		switch {
+		case err != nil:
+			return err
+		case !ok:
+			return fmt.Errorf("battery: %w", store.ErrNotFound)
+		}
+		return fmt.Errorf("%w: no state is stored", store.ErrConflict)
+	case err != nil:
+		return err
+	case version != expected:
+		return fmt.Errorf("%w: stored version %d, expected %d", store.ErrConflict, version, expected)
+	}
+	return invalidf("watermark (sequence %d, time %s) is behind the stored one (sequence %d, time %s)",
+		w.Sequence, w.Time.Format(time.RFC3339Nano), seq, t.Format(time.RFC3339Nano))
+}
