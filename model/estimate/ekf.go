@@ -1,0 +1,504 @@
+package estimate
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/voltcast/voltcast/model/cell"
+)
+
+// EKF is an extended Kalman filter for the state of charge of a pack (Plett 2004,
+// Part 3; see the package documentation). Build it with [NewEKF]; the zero value is not
+// usable. It owns all its scratch space: Update does not allocate. It is not safe for
+// concurrent use.
+type EKF struct {
+	pack       cell.Pack // health factors of the pack are the fixed values when health is off
+	cfg        config
+	l          layout
+	f          kf  // covariance
+	x          vec // state mean
+	clk        clock
+	rejectRun  int
+	counters   Counters
+	floor      vec // smallest variances kept by a repair
+	a          trans
+	tmin, tmax float64
+}
+
+// NewEKF returns a filter for pack p (whose Type must have passed cell.Type.Validate)
+// initialised at state of charge soc with standard deviation Settings.InitialSOCSigma,
+// RC branches at rest, hysteresis zero, and health factors at the pack's own values. nil
+// settings select the defaults. Use [EKF.InitFromVoltage] to start from a rested voltage
+// instead.
+func NewEKF(p cell.Pack, soc float64, s *Settings) (*EKF, error) {
+	if p.Type == nil || p.Type.OCV == nil {
+		panic("estimate: pack without a validated type")
+	}
+	if err := p.Validate(); err != nil {
+		return nil, fmt.Errorf("estimate: %w", err)
+	}
+	if err := s.Validate(); err != nil {
+		return nil, err
+	}
+	f := &EKF{pack: p, cfg: resolve(p, s)}
+	f.l = newLayout(p.Type, f.cfg.health)
+	f.f.n = f.l.n
+	f.tmin, f.tmax = ocvTempRange(p.Type)
+	f.floor[0] = 1e-12
+	for i := 1; i < maxDim; i++ {
+		f.floor[i] = 1e-14
+	}
+	if f.l.ic >= 0 {
+		f.floor[f.l.ic], f.floor[f.l.ir] = 1e-12, 1e-12
+	}
+	if err := f.InitSOC(soc); err != nil {
+		return nil, err
+	}
+	return f, nil
+}
+
+// InitSOC restarts the estimate at state of charge soc (0–1) with standard deviation
+// Settings.InitialSOCSigma: RC branches at rest, hysteresis zero, health factors at the
+// pack's values (or the current estimate's, if health estimation is on and has
+// started). The clock and the counters carry on.
+func (f *EKF) InitSOC(soc float64) error {
+	if err := cell.CheckSOC("soc", soc); err != nil {
+		return err
+	}
+	f.reset(soc, f.cfg.initSOCVar)
+	return nil
+}
+
+// InitFromVoltage restarts the estimate from a rested pack voltage v (V) at
+// temperature tk (K): the SOC is the inverse OCV of the cell voltage, its standard
+// deviation what the voltage noise, the rest model error and any hysteresis allow
+// through the OCV slope (at least 0.02), the RC branches at rest. It assumes the pack
+// has rested long enough for its RC voltages to decay; the clock and counters carry on.
+func (f *EKF) InitFromVoltage(v, tk float64) error {
+	soc, variance, err := socFromVoltage(f.pack, &f.cfg, v, tk)
+	if err != nil {
+		return err
+	}
+	f.reset(soc, variance)
+	f.clk.restSeconds = math.Max(f.clk.restSeconds, f.cfg.restDuration)
+	return nil
+}
+
+// socFromVoltage inverts the OCV at a rested voltage and returns the SOC and its
+// variance.
+func socFromVoltage(p cell.Pack, c *config, v, tk float64) (soc, variance float64, err error) {
+	if !cell.Finite(v) || v <= 0 || v >= c.vMax {
+		return 0, 0, cell.Invalid("voltage", "rested voltage must be positive and below %g V, got %g", c.vMax, v)
+	}
+	if !cell.Finite(tk) || tk < minKelvin || tk > maxKelvin {
+		return 0, 0, cell.Invalid("temperature", "must be %g to %g K, got %g", minKelvin, maxKelvin, tk)
+	}
+	ns := float64(p.Series)
+	ocv := p.Type.OCV
+	soc = math.Min(1, math.Max(0, ocv.Inverse(v/ns, tk)))
+	slope := ocv.Deriv(soc, tk)
+	hm := p.Type.Hysteresis.Max
+	vv := (c.voltVar+c.restModelVar)/(ns*ns) + hm*hm
+	sigma := 0.5
+	if slope > 0 {
+		sigma = math.Min(0.5, math.Max(0.02, math.Sqrt(vv)/slope))
+	}
+	return soc, sigma * sigma, nil
+}
+
+// reset sets the state mean and covariance for a new start at soc.
+func (f *EKF) reset(soc, socVar float64) {
+	l := f.l
+	capf, resf := f.healthFactors()
+	f.x = vec{}
+	f.f.p = mat{}
+	f.x[0] = soc
+	f.f.p[0][0] = socVar
+	for k := range l.nb {
+		f.f.p[1+k][1+k] = f.cfg.initBranch
+	}
+	if l.ih >= 0 {
+		// Unknown hysteresis: uniform on ±Max has variance Max²/3.
+		m := f.pack.Type.Hysteresis.Max
+		f.f.p[l.ih][l.ih] = m * m / 3
+	}
+	if l.ic >= 0 {
+		f.x[l.ic], f.x[l.ir] = capf, resf
+		f.f.p[l.ic][l.ic] = f.cfg.capVar0
+		f.f.p[l.ir][l.ir] = f.cfg.resVar0
+	}
+	f.rejectRun = 0
+}
+
+// healthFactors returns the capacity and resistance factors in force: the estimates
+// when health estimation has started, else the pack's fixed values.
+func (f *EKF) healthFactors() (capf, resf float64) {
+	if f.l.ic >= 0 && f.x[f.l.ic] > 0 {
+		return f.x[f.l.ic], f.x[f.l.ir]
+	}
+	return packFactors(f.pack)
+}
+
+// packFactors returns a pack's capacity and resistance factors, 1 where unset.
+func packFactors(p cell.Pack) (capf, resf float64) {
+	return or(p.CapacityFactor, 1), or(p.ResistanceFactor, 1)
+}
+
+// model returns the pack with the health factors in force and the cell state of the
+// mean.
+func (f *EKF) model() (cell.Pack, cell.State) {
+	pk := f.pack
+	if f.l.ic >= 0 {
+		pk.CapacityFactor, pk.ResistanceFactor = f.x[f.l.ic], f.x[f.l.ir]
+	}
+	cs := cell.State{SOC: f.x[0]}
+	for k := range f.l.nb {
+		cs.V[k] = f.x[1+k]
+	}
+	if f.l.ih >= 0 {
+		cs.H = f.x[f.l.ih]
+	}
+	return pk, cs
+}
+
+// Update processes one sample and returns the estimate after it. A sample that cannot
+// be used (time not increasing, implausible current or temperature) returns an error
+// and leaves the filter unchanged; the returned estimate then describes the unchanged
+// state, with Voltage and Innovation NaN. A NaN, infinite or saturated reading is
+// counted and flagged FlagInvalid, likewise without changing the state. Update does not
+// allocate.
+func (f *EKF) Update(s Sample) (Estimate, error) {
+	f.counters.Samples++
+	flags, err := f.cfg.check(s, &f.clk)
+	if err != nil || flags&FlagInvalid != 0 {
+		if err != nil {
+			f.counters.Errors++
+		} else {
+			f.counters.Invalid++
+		}
+		e := f.estimate(s.Time, flags)
+		e.Voltage, e.Innovation = math.NaN(), math.NaN()
+		return e, err
+	}
+	pl := f.cfg.plan(s, f.clk)
+	flags |= pl.flags
+	for _, sg := range pl.seg[:pl.n] {
+		f.predict(sg)
+	}
+	f.clk = pl.clk
+	flags |= tempFlag(f.pack.Type, f.tmin, f.tmax, s.Current, s.Temperature)
+
+	// Measurement update (scalar).
+	yhat, h, r := f.measurement(s.Current, s.Temperature, flags&FlagRest != 0)
+	innov := s.Voltage - yhat
+	sv, ph := f.f.innovationVar(&h, r)
+	nis := innov * innov / sv
+	sigma := math.Sqrt(sv)
+	accept := true
+	if nis > f.cfg.gate {
+		f.rejectRun++
+		if f.rejectRun < f.cfg.maxReject {
+			accept = false
+			flags |= FlagRejected
+			f.counters.Rejected++
+		} else {
+			f.inflate(innov*innov, sv, r)
+			sv, ph = f.f.innovationVar(&h, r)
+			flags |= FlagForced
+			f.counters.Forced++
+		}
+	}
+	if accept {
+		f.rejectRun = 0
+		f.f.update(&f.x, &h, r, innov, sv, &ph)
+		f.counters.Updates++
+	}
+	flags |= f.clamp()
+	if !f.f.positiveDefinite() {
+		f.f.repair(&f.floor)
+		f.counters.Repairs++
+		flags |= FlagRepaired
+	}
+	e := f.estimate(s.Time, flags)
+	e.Voltage, e.Innovation = yhat, innov
+	e.InnovationSigma, e.NIS = sigma, nis
+	return e, nil
+}
+
+// predict advances the mean and the covariance over one segment of constant current.
+//
+// The mean follows [cell.Pack.Step] exactly (the same expressions in the same order, so
+// the filter and the simulator agree to the last bit; TestPredictionMatchesStep holds
+// them together). It is computed here rather than by calling Step because the
+// Jacobian needs Step's coefficients, and evaluating the parameter tables and
+// exponentials twice would double the cost of an update.
+//
+// With ic the cell current, q = 3600·Q·c the cell charge (Q rated Ah, c capacity
+// factor), η the coulombic efficiency and ρ the resistance factor, Step computes
+//
+//	z⁺ = z − η·ic·Δt/q
+//	vₖ⁺ = aₖ·vₖ + ρRₖ·(1−aₖ)·ic,  aₖ = exp(−gₖ), gₖ = Δt/(ρRₖCₖ), Rₖ, Cₖ at (z, T)
+//	h⁺ = b·h + (1−b)·m,  b = exp(−κ|ic|), κ = ηγΔt/q, m = −M·sign(ic)
+//
+// so, with uₖ = vₖ − ρRₖ·ic, the non-zero Jacobian entries are
+//
+//	∂z⁺/∂z = 1,  ∂z⁺/∂c = η·ic·Δt/(q·c)
+//	∂vₖ⁺/∂vₖ = aₖ
+//	∂vₖ⁺/∂z = (aₖgₖuₖ/Rₖ + ρ(1−aₖ)ic)·dRₖ/dz + (aₖgₖuₖ/Cₖ)·dCₖ/dz
+//	∂vₖ⁺/∂ρ = aₖgₖuₖ/ρ + Rₖ(1−aₖ)·ic
+//	∂h⁺/∂h = b,  ∂h⁺/∂c = b·κ|ic|/c·(h − m)
+//
+// and the input column, for the current-sensor noise, is ∂z⁺/∂i = −η·Δt/(q·P),
+// ∂vₖ⁺/∂i = ρRₖ(1−aₖ)/P, ∂h⁺/∂i = −κ·sign(ic)·b·(h − m)/P for a pack of P cells in
+// parallel.
+func (f *EKF) predict(sg segment) {
+	if sg.dt <= 0 {
+		return
+	}
+	l := f.l
+	var b, qd vec
+	xn, dz := f.transition(sg, &f.a, &b)
+	// Process noise: the current sensor's noise through the input column, plus the
+	// random walks.
+	qd[0] = f.cfg.socVarRate*sg.dt + f.cfg.gainVar*dz*dz
+	for k := range l.nb {
+		qd[1+k] = f.cfg.branchVar * sg.dt
+	}
+	if l.ih >= 0 {
+		qd[l.ih] = f.cfg.branchVar * sg.dt
+	}
+	if l.ic >= 0 {
+		qd[l.ic] = f.cfg.capVarRate * sg.dt
+		qd[l.ir] = f.cfg.resVarRate * sg.dt
+	}
+	f.f.predict(&f.a, &b, f.cfg.currentVar, &qd)
+	f.x = xn
+}
+
+// transition returns the mean after one segment and the SOC decrement η·ic·Δt/q, and
+// writes the Jacobian into a and the input column ∂x⁺/∂i into b.
+func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
+	l := f.l
+	pk := f.pack
+	if l.ic >= 0 {
+		pk.CapacityFactor, pk.ResistanceFactor = f.x[l.ic], f.x[l.ir]
+	}
+	t := pk.Type
+	n := l.n
+	par := float64(pk.Parallel)
+	ic := sg.i / par
+	z, dt, tk := f.x[0], sg.dt, sg.tk
+	eta := 1.0
+	if ic < 0 {
+		eta = t.Efficiency()
+	}
+	capf, rf := packFactors(pk)
+	q := 3600 * pk.CellCapacityAh()
+
+	a.reset(n)
+	dz = eta * ic * dt / q
+	xn[0] = z - dz // Step: s.SOC = z - eta*ic*dt/q
+	b[0] = -eta * dt / q / par
+	if l.ic >= 0 {
+		a.set(0, l.ic, dz/capf)
+		xn[l.ic], xn[l.ir] = f.x[l.ic], f.x[l.ir]
+	}
+	for k := range l.nb {
+		br := &t.Branches[k]
+		r, c := br.R.At(z, tk), br.C.At(z, tk)
+		rr := r * rf // Step: r := b.R.At(z, tk) * rf
+		g := dt / (rr * c)
+		ak := math.Exp(-g)
+		v := f.x[1+k]
+		xn[1+k] = ak*v + rr*(1-ak)*ic // Step: a*s.V[k] + r*(1-a)*ic
+		u := v - rr*ic
+		a.d[1+k] = ak
+		if dr, dc := br.R.SOCDeriv(z, tk), br.C.SOCDeriv(z, tk); dr != 0 || dc != 0 {
+			a.set(1+k, 0, (ak*g*u/r+rf*(1-ak)*ic)*dr+ak*g*u/c*dc)
+		}
+		if l.ir >= 0 {
+			a.set(1+k, l.ir, ak*g*u/rf+r*(1-ak)*ic)
+		}
+		b[1+k] = rr * (1 - ak) / par
+	}
+	if l.ih >= 0 {
+		h := f.x[l.ih]
+		xn[l.ih] = h
+		if hy := t.Hysteresis; ic != 0 {
+			bb := math.Exp(-math.Abs(eta * ic * hy.Gamma * dt / q)) // as Step
+			m := -hy.Max
+			if ic < 0 {
+				m = hy.Max
+			}
+			xn[l.ih] = bb*h + (1-bb)*m
+			kappa := math.Abs(eta * hy.Gamma * dt / q)
+			d := h - m
+			a.d[l.ih] = bb
+			if l.ic >= 0 {
+				a.set(l.ih, l.ic, bb*kappa*math.Abs(ic)/capf*d)
+			}
+			b[l.ih] = -kappa * math.Copysign(1, ic) * bb * d / par
+		}
+	}
+	return xn, dz
+}
+
+// measurement returns the modelled pack voltage at the mean for pack current i and
+// temperature tk (the expressions of cell.Pack.Voltage, in its order), the measurement
+// row H and the measurement noise variance. With S cells in series,
+// y = S·(OCV(z) + h − ρR0(z)·ic − Σvₖ), so H = S·[dOCV/dz − ρ·dR0/dz·ic, −1 …, +1, 0,
+// −R0·ic].
+func (f *EKF) measurement(i, tk float64, rest bool) (yhat float64, h vec, r float64) {
+	l := f.l
+	t := f.pack.Type
+	ns := float64(f.pack.Series)
+	par := float64(f.pack.Parallel)
+	ic := i / par
+	z := f.x[0]
+	_, rf := packFactors(f.pack)
+	if l.ir >= 0 {
+		rf = f.x[l.ir]
+	}
+	hv := 0.0
+	if l.ih >= 0 {
+		hv = f.x[l.ih]
+	}
+	r0 := t.R0.At(z, tk)
+	v := (t.OCV.At(z, tk) + hv) - (r0*rf)*ic // CellVoltage: OCV + H − R0·ic
+	for k := range l.nb {
+		v -= f.x[1+k]
+	}
+	yhat = v * ns
+	h[0] = ns * (t.OCV.Deriv(z, tk) - rf*t.R0.SOCDeriv(z, tk)*ic)
+	for k := range l.nb {
+		h[1+k] = -ns
+	}
+	if l.ih >= 0 {
+		h[l.ih] = ns
+	}
+	if l.ir >= 0 {
+		h[l.ir] = -ns * r0 * ic
+	}
+	model := f.cfg.modelVar
+	if rest {
+		model = f.cfg.restModelVar
+	}
+	dydi := ns * rf * r0 / par
+	r = f.cfg.voltVar + model + dydi*dydi*f.cfg.currentVar
+	return yhat, h, r
+}
+
+// inflate scales the covariance of the dynamic states (SOC, RC, hysteresis) so that an
+// innovation e2 = e² becomes plausible: by α = (e² − r)/(s − r) where s is the
+// innovation variance. Scaling rows and columns by √α keeps P positive definite.
+func (f *EKF) inflate(e2, s, r float64) {
+	alpha := 1.0
+	if s > r {
+		alpha = (e2 - r) / (s - r)
+	}
+	alpha = math.Min(math.Max(alpha, 1), 1e6)
+	sq := math.Sqrt(alpha)
+	var d vec
+	for i := range f.l.n {
+		d[i] = sq
+	}
+	if f.l.ic >= 0 {
+		d[f.l.ic], d[f.l.ir] = 1, 1
+	}
+	for i := range f.l.n {
+		for j := range f.l.n {
+			f.f.p[i][j] *= d[i] * d[j]
+		}
+	}
+}
+
+// clamp holds the states within their bounds and reports what it did.
+func (f *EKF) clamp() Flags {
+	var fl Flags
+	z := f.x[0]
+	if z < 0 || z > 1 {
+		fl |= FlagSOCRange
+		f.x[0] = math.Min(socMax, math.Max(socMin, z))
+	}
+	if f.l.ic >= 0 {
+		c, r := f.x[f.l.ic], f.x[f.l.ir]
+		if c < capMin || c > capMax || r < resMin || r > resMax {
+			fl |= FlagHealthClamped
+			f.x[f.l.ic] = math.Min(capMax, math.Max(capMin, c))
+			f.x[f.l.ir] = math.Min(resMax, math.Max(resMin, r))
+		}
+	}
+	return fl
+}
+
+// estimate reports the present state.
+func (f *EKF) estimate(t float64, flags Flags) Estimate {
+	e := Estimate{
+		Time:     t,
+		SOC:      math.Min(1, math.Max(0, f.x[0])),
+		SOCSigma: math.Sqrt(f.f.p[0][0]),
+		Flags:    flags,
+	}
+	e.CapacityFactor, e.ResistanceFactor = f.healthFactors()
+	if f.l.ic >= 0 {
+		e.CapacitySigma = math.Sqrt(f.f.p[f.l.ic][f.l.ic])
+		e.ResistanceSigma = math.Sqrt(f.f.p[f.l.ir][f.l.ir])
+	}
+	return e
+}
+
+// Counters returns what the filter has done so far.
+func (f *EKF) Counters() Counters { return f.counters }
+
+// State returns the filter's complete state, for persisting.
+func (f *EKF) State() State {
+	l := f.l
+	st := State{
+		Dim: l.n, Branches: l.nb, Hysteresis: l.ih >= 0, Health: l.ic >= 0,
+		SOC: f.x[0], Covariance: f.f.p,
+		Started: f.clk.started, Time: f.clk.time, HeldCurrent: f.clk.heldCurrent,
+		HeldTemperature: f.clk.heldTemp, RestSeconds: f.clk.restSeconds,
+		RejectRun: f.rejectRun, Counters: f.counters,
+	}
+	for k := range l.nb {
+		st.BranchVolts[k] = f.x[1+k]
+	}
+	if l.ih >= 0 {
+		st.HysteresisVolts = f.x[l.ih]
+	}
+	st.CapacityFactor, st.ResistanceFactor = f.healthFactors()
+	return st
+}
+
+// Restore replaces the filter's state by st, which must come from State of a filter
+// with the same layout (type structure and health setting). It returns a
+// [*cell.FieldError] and leaves the filter unchanged if st is unusable.
+func (f *EKF) Restore(st State) error {
+	if err := f.l.check(&st); err != nil {
+		return err
+	}
+	l := f.l
+	if l.ic < 0 {
+		capf, resf := f.healthFactors()
+		if st.CapacityFactor != capf || st.ResistanceFactor != resf {
+			return cell.Invalid("state", "health factors %g, %g differ from the pack's fixed %g, %g", st.CapacityFactor, st.ResistanceFactor, capf, resf)
+		}
+	}
+	f.x = vec{}
+	f.x[0] = st.SOC
+	for k := range l.nb {
+		f.x[1+k] = st.BranchVolts[k]
+	}
+	if l.ih >= 0 {
+		f.x[l.ih] = st.HysteresisVolts
+	}
+	if l.ic >= 0 {
+		f.x[l.ic], f.x[l.ir] = st.CapacityFactor, st.ResistanceFactor
+	}
+	f.f.p = st.Covariance
+	f.clk = clock{started: st.Started, time: st.Time, heldCurrent: st.HeldCurrent,
+		heldTemp: st.HeldTemperature, restSeconds: st.RestSeconds}
+	f.rejectRun = st.RejectRun
+	f.counters = st.Counters
+	return nil
+}
