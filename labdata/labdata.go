@@ -45,6 +45,10 @@ import (
 // ErrFormat is wrapped by every error about the content of a lab file.
 var ErrFormat = errors.New("bad lab data")
 
+// ErrDuplicateTime is wrapped (besides [ErrFormat]) by the error about a repeated
+// timestamp, which [Options.KeepLastDuplicate] resolves.
+var ErrDuplicateTime = errors.New("duplicated timestamp")
+
 // CurrentSign states which current direction a file calls positive.
 type CurrentSign int
 
@@ -317,7 +321,7 @@ func Read(rd io.Reader, name string, opt *Options) (*Record, error) {
 				rec.truncate(n - 1)
 				rec.DroppedDuplicates++
 			case t == prev:
-				return nil, fmt.Errorf("%s:%d: %w: duplicated timestamp %g s (a repeated timestamp is an error; see KeepLastDuplicate)", name, line, ErrFormat, t)
+				return nil, fmt.Errorf("%s:%d: %w: %w %g s", name, line, ErrFormat, ErrDuplicateTime, t)
 			}
 		}
 		rec.Time = append(rec.Time, t)

@@ -60,6 +60,9 @@ func (o readOptions) labOptions() (*labdata.Options, error) {
 // column is one record).
 func readRecords(path string, lo *labdata.Options) ([]fit.Record, error) {
 	r, err := labdata.ReadFile(path, lo)
+	if errors.Is(err, labdata.ErrDuplicateTime) {
+		return nil, fmt.Errorf("%w (if the tester rounds step-end timestamps, --duplicate-timestamps keep-last keeps the later row)", err)
+	}
 	if err != nil {
 		return nil, err
 	}

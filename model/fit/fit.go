@@ -171,7 +171,7 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 		return nil, fmt.Errorf("fit: the fitted type is invalid: %w", err)
 	}
 	res.Type = typ
-	res.Report.Files = reportFiles(p, typ, res.Pulses, &s.Sim)
+	res.Report.Files = reportFiles(p, typ, ocv, res.Pulses, &s.Sim)
 	res.Runtime = time.Since(start)
 	return res, nil
 }
@@ -534,13 +534,15 @@ func lastDischargeVolts(r Record) float64 {
 }
 
 // reportFiles computes the voltage error of the fitted type on every input record.
-func reportFiles(p *Problem, typ *cell.Type, prs []*PulseResult, sim *SimSettings) []FileReport {
+func reportFiles(p *Problem, typ *cell.Type, ocv *OCVResult, prs []*PulseResult, sim *SimSettings) []FileReport {
 	var out []FileReport
-	// The OCV test, simulated from full with the lab counter's start.
+	// The part of the OCV test that was used, simulated from full at its start.
 	{
 		r := p.OCVTest
-		v := Simulate(nil, typ, r, r.initialSOC(), nil)
-		out = append(out, fileReport(r, "ocv", "simulated from full over the whole test", v, 0))
+		part := Record{Name: r.Name, Time: r.Time[ocv.Start:ocv.End], Current: r.Current[ocv.Start:ocv.End],
+			Voltage: r.Voltage[ocv.Start:ocv.End], Temperature: r.Temperature[ocv.Start:ocv.End]}
+		v := Simulate(nil, typ, part, 1, nil)
+		out = append(out, fileReport(part, "ocv", "the low-rate discharge (and charge) used, simulated from full", v, 0))
 	}
 	for i, r := range p.PulseTests {
 		out = append(out, pulseReport(r, typ, prs[i]))

@@ -50,6 +50,10 @@ type OCVResult struct {
 	ChargeSOC [2]float64
 	// Method says how the curve was formed.
 	Method string
+	// Start and End bound the samples [Start, End) of the record that were used: from
+	// the last sample before the discharge to the end of the charge branch (or of the
+	// discharge).
+	Start, End int
 }
 
 // branch is one constant-current part of a low-rate test.
@@ -125,7 +129,7 @@ func OCV(rec Record, settings *OCVSettings) (*OCVResult, error) {
 	}
 	ah0 := ah[max(d.start-1, 0)]
 	ahEnd := ah[d.end-1]
-	res := &OCVResult{CapacityAh: q, DischargeAmps: d.amps, SOC: append([]float64(nil), s.Grid...)}
+	res := &OCVResult{CapacityAh: q, DischargeAmps: d.amps, SOC: append([]float64(nil), s.Grid...), Start: max(d.start-1, 0), End: d.end}
 
 	var dz, dv, temps []float64
 	for k := d.start; k < d.end; k++ {
@@ -172,6 +176,7 @@ func OCV(rec Record, settings *OCVSettings) (*OCVResult, error) {
 			vc = smoothBranch(cz, cv, s.Grid, s.HalfWidth)
 			res.ChargeAmps = c.amps
 			res.ChargeSOC = [2]float64{slicesMin(cz), slicesMax(cz)}
+			res.End = c.end
 		}
 	}
 	res.TemperatureK = median(temps)
