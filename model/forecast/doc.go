@@ -12,9 +12,10 @@
 //
 //   - the state of charge change within Settings.MaxSOCStep (5 % by default), and
 //   - the predicted change of the cell terminal voltage within Settings.MaxVoltsStep
-//     (20 mV by default), predicted from the OCV slope and the RC branches’ rates
-//     (Rₖ·i − vₖ)/(RₖCₖ), which keeps steps short while a branch is settling and long
-//     on the flat of the discharge,
+//     (20 mV by default), predicted from the OCV slope and the RC branches' rates
+//     ((Rₖ·i − vₖ)/(RₖCₖ) at the start of a segment, then their mean rate over the
+//     previous step), which keeps steps short while a branch is settling and long on
+//     the flat of the discharge,
 //
 // and steps end at every segment boundary. A 10-hour constant-current discharge takes
 // about 60 steps (TestSteps), not 36 000.

@@ -86,8 +86,12 @@ func (g *engine) classify(s *cell.State, pt point) Status {
 	return StatusSOCFloor
 }
 
-// stepSize returns the next step length (package documentation, "Method").
-func (g *engine) stepSize(s *cell.State, pt point) float64 {
+// stepSize returns the next step length (package documentation, "Method"). The RC
+// branches' rate is their exact rate (Rₖ·i − vₖ)/(RₖCₖ) at the start of a segment, and
+// afterwards their mean rate over the previous step, from v (the branch voltages at its
+// start) and h (its length; 0 at the start of a segment). The mean rate over-estimates a
+// settling branch's rate (shorter steps: safe) and saves four table lookups per step.
+func (g *engine) stepSize(s *cell.State, pt point, v *[cell.MaxBranches]float64, h float64) float64 {
 	dt := g.set.MaxStep
 	ic := pt.i / g.np
 	eta := 1.0
@@ -101,6 +105,10 @@ func (g *engine) stepSize(s *cell.State, pt point) float64 {
 	z, tk := s.SOC, g.c.Kelvin
 	rate := g.typ.OCV.Deriv(z, tk) * dzdt
 	for k := range g.typ.Branches {
+		if h > 0 {
+			rate -= (s.V[k] - v[k]) / h
+			continue
+		}
 		b := &g.typ.Branches[k]
 		r := b.R.At(z, tk) * g.rf
 		rate -= (r*ic - s.V[k]) / (r * b.C.At(z, tk))
@@ -160,6 +168,8 @@ func (g *engine) run(s0 cell.State, tr *tracer) Result {
 	res.StartVolts, res.StartAmps = pt.v, pt.i
 	g.note(pt.i)
 	t := 0.0
+	var lastV [cell.MaxBranches]float64 // branch voltages at the start of the last step
+	lastH := 0.0                        // its length; 0 at the start of a segment
 	nextOut := math.Inf(1)
 	k := 0
 	if tr != nil {
@@ -180,7 +190,7 @@ func (g *engine) run(s0 cell.State, tr *tracer) Result {
 			break
 		}
 		segEnd := cur.End()
-		next := math.Min(math.Min(t+g.stepSize(&s, pt), segEnd), math.Min(g.horizon, nextOut))
+		next := math.Min(math.Min(t+g.stepSize(&s, pt, &lastV, lastH), segEnd), math.Min(g.horizon, nextOut))
 		h := next - t
 		s1 := s
 		i, err := g.c.Advance(&s1, sg.Kind, sg.Value, h)
@@ -203,8 +213,10 @@ func (g *engine) run(s0 cell.State, tr *tracer) Result {
 		}
 		res.Steps++
 		g.account(&res, i, h, pt, pt1)
+		lastV, lastH = s.V, h
 		t, s, pt = next, s1, pt1
 		if t == segEnd {
+			lastH = 0
 			if !cur.Next() {
 				res.Status = StatusLoadEnded
 				break

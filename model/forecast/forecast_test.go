@@ -348,7 +348,9 @@ func TestTrace(t *testing.T) {
 		}
 	}
 	last := res.Trace[49]
-	if math.Abs(last.Volts-res.FinalVolts) > 1e-3 || math.Abs(last.SOC-res.Final.SOC) > 1e-6 {
+	// The trace is a second run with extra step boundaries; the power segments' held
+	// current differs between the two to second order in the step.
+	if math.Abs(last.Volts-res.FinalVolts) > 1e-3 || math.Abs(last.SOC-res.Final.SOC) > 2e-5 {
 		t.Errorf("trace ends at %.5f V, z = %.6f; the forecast stopped at %.5f V, z = %.6f", last.Volts, last.SOC, res.FinalVolts, res.Final.SOC)
 	}
 	// Each trace point is a model state: simulating to it in 10 s steps gives the same,
