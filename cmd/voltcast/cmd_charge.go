@@ -86,6 +86,8 @@ func runCharge(_ context.Context, args []string, stdout, stderr io.Writer) error
 	tempC := fs.Float64("temperature-celsius", math.NaN(), "cell and ambient temperature, °C, held over the charge (required)")
 	series := fs.Int("series", 1, "cells in series")
 	parallel := fs.Int("parallel", 1, "cells in parallel")
+	capFactor := fs.Float64("capacity-factor", 1, "present capacity as a fraction of rated (state of health), in (0, 2]")
+	resFactor := fs.Float64("resistance-factor", 1, "present resistance as a multiple of new, in (0, 20]")
 	current := fs.Float64("charger-current-amps", 0, "charger current limit, A, a positive magnitude (required)")
 	volts := fs.Float64("charger-voltage-volts", 0, "charger voltage limit at the pack, V (0: whatever the chemistry needs)")
 	power := fs.Float64("charger-power-watts", 0, "charger output power limit, W (0: none)")
@@ -119,8 +121,8 @@ func runCharge(_ context.Context, args []string, stdout, stderr io.Writer) error
 	if err != nil {
 		return err
 	}
-	p, err := cell.NewPack(typ, *series, *parallel)
-	if err != nil {
+	p := cell.Pack{Type: typ, Series: *series, Parallel: *parallel, CapacityFactor: *capFactor, ResistanceFactor: *resFactor}
+	if err := p.Validate(); err != nil {
 		return fmt.Errorf("invalid pack: %w", err)
 	}
 	res, err := charge.Plan(&charge.Request{

@@ -543,3 +543,102 @@ func BenchmarkPlanDeadline(b *testing.B) {
 		}
 	}
 }
+
+// TestPrecharge checks the lithium precharge at ≤ 0.1 C below the cut-off voltage
+// (REFERENCE.md §1a, common practice) and the below-floor warning (§5).
+func TestPrecharge(t *testing.T) {
+	typ := builtin(t, "generic-nmc-18650")
+	// A cell just after a heavy discharge: rested OCV 3.30 V, but 0.35 V still across
+	// the slow RC branch puts the terminal at 2.95 V, below the 3.0 V cut-off.
+	res := mustPlan(t, &Request{Pack: pack(t, typ, 1, 1), State: cell.State{V: [cell.MaxBranches]float64{0, 0.35}},
+		TemperatureCelsius: 25, MaxCurrentAmps: 1.5, Efficiency: 0.9}, nil)
+	pre := phaseOf(res, PhasePrecharge)
+	if pre == nil || math.Abs(pre.StartCurrentAmps+0.3) > 1e-12 || !hasWarning(res, WarnBelowCutoff) {
+		t.Fatalf("phases %+v, warnings %+v; want a 0.1 C (0.3 A) precharge and a below-cutoff warning", res.Phases, res.Warnings)
+	}
+	if math.Abs(pre.EndVolts-3.0) > 1e-6 {
+		t.Errorf("precharge ends at %.6f V; want the 3.0 V cut-off", pre.EndVolts)
+	}
+	if res.Phases[1].Kind != PhaseConstantCurrent || hasWarning(res, WarnBelowFloor) {
+		t.Errorf("after precharge %s, warnings %+v", res.Phases[1].Kind, res.Warnings)
+	}
+	deep := mustPlan(t, &Request{Pack: pack(t, typ, 1, 1), State: cell.State{V: [cell.MaxBranches]float64{0, 0.9}},
+		TemperatureCelsius: 25, MaxCurrentAmps: 1.5, Efficiency: 0.9}, nil)
+	if !hasWarning(deep, WarnBelowFloor) {
+		t.Errorf("terminal 2.4 V (< 2.5 V floor): warnings %+v; want below-floor", deep.Warnings)
+	}
+}
+
+// FuzzPlan checks that no request makes Plan panic or return a result with non-finite
+// numbers.
+func FuzzPlan(f *testing.F) {
+	f.Add(0.2, 25.0, 0.8, 1.5, 0.0, 0.0, 0.9, 0.0, 0.0, uint8(0))
+	f.Add(0.0, 10.0, 1.0, 2.0, 14.0, 30.0, 0.85, 20000.0, 0.02, uint8(6))
+	f.Add(0.5, 20.0, 0.0, 0.24, 0.0, 0.0, 1.0, 3600.0, 0.0, uint8(5))
+	names := chem.Names()
+	f.Fuzz(func(t *testing.T, soc, temp, target, amps, volts, watts, eff, deadline, term float64, which uint8) {
+		typ := builtin(t, names[int(which)%len(names)])
+		req := &Request{Pack: cell.Pack{Type: typ, Series: 2, Parallel: 1}, State: cell.State{SOC: soc},
+			TemperatureCelsius: temp, TargetSOC: target, MaxCurrentAmps: amps, MaxVoltageVolts: volts,
+			MaxPowerWatts: watts, Efficiency: eff, DeadlineSeconds: deadline, TerminationRate: term}
+		res, err := Plan(req, &Settings{MaxSeconds: 48 * 3600})
+		if err != nil {
+			return
+		}
+		for _, v := range []float64{res.Target.Seconds, res.Full.Seconds, res.Full.ChargeAh, res.Full.EnergyWh, res.Full.SupplyWh, res.CurrentAmps} {
+			if !cell.Finite(v) || v < 0 {
+				t.Fatalf("non-finite or negative figure %g in %+v", v, res)
+			}
+		}
+	})
+}
+
+// FuzzPlanValid maps arbitrary numbers into valid requests (any built-in rechargeable
+// type, any SOC, temperature, limits and deadline) and checks the plan's invariants:
+// finite figures, time and charge never decreasing from target to full, and the
+// supply energy equal to the pack energy ÷ efficiency.
+func FuzzPlanValid(f *testing.F) {
+	f.Add(0.2, 25.0, 0.8, 1.5, 0.0, 0.0, 0.9, 0.0, uint8(0))
+	f.Add(0.95, -10.0, 0.99, 0.01, 3.0, 1.0, 0.5, 5e4, uint8(3))
+	var types []*cell.Type
+	for _, typ := range chem.All() {
+		if typ.Rechargeable() {
+			types = append(types, typ)
+		}
+	}
+	frac := func(x float64) float64 {
+		if !cell.Finite(x) {
+			return 0.5
+		}
+		return math.Abs(x - math.Trunc(x))
+	}
+	f.Fuzz(func(t *testing.T, soc, temp, target, amps, volts, watts, eff, deadline float64, which uint8) {
+		typ := types[int(which)%len(types)]
+		p := cell.Pack{Type: typ, Series: 3, Parallel: 2}
+		oneC := p.RatedCapacityAh()
+		req := &Request{Pack: p, State: cell.State{SOC: frac(soc)},
+			TemperatureCelsius: typ.Limits.ChargeMinCelsius + frac(temp)*(typ.Limits.ChargeMaxCelsius-typ.Limits.ChargeMinCelsius),
+			TargetSOC:          frac(target),
+			MaxCurrentAmps:     (0.001 + 2*frac(amps)) * oneC,
+			MaxVoltageVolts:    frac(volts) * 5 * 3,
+			MaxPowerWatts:      frac(watts) * 20 * oneC,
+			Efficiency:         0.05 + 0.95*frac(eff),
+			DeadlineSeconds:    frac(deadline) * 20 * 3600,
+		}
+		res, err := Plan(req, &Settings{MaxSeconds: 48 * 3600})
+		if err != nil {
+			t.Fatalf("valid request %+v: %v", req, err)
+		}
+		for _, v := range []float64{res.Target.Seconds, res.Full.Seconds, res.Full.ChargeAh, res.Full.EnergyWh, res.CurrentAmps} {
+			if !cell.Finite(v) || v < 0 {
+				t.Fatalf("non-finite or negative figure %g in %+v", v, res)
+			}
+		}
+		if res.Target.Reached && res.Full.Reached && (res.Target.Seconds > res.Full.Seconds+1e-6 || res.Target.ChargeAh > res.Full.ChargeAh+1e-9) {
+			t.Fatalf("target %+v after full %+v", res.Target, res.Full)
+		}
+		if math.Abs(res.Full.SupplyWh*req.Efficiency-res.Full.EnergyWh) > 1e-9*math.Max(1, res.Full.EnergyWh) {
+			t.Fatalf("supply %g Wh, pack %g Wh, efficiency %g", res.Full.SupplyWh, res.Full.EnergyWh, req.Efficiency)
+		}
+	})
+}

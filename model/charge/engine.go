@@ -55,6 +55,10 @@ type run struct {
 	done   bool    // target-only run finished
 	vhold  float64 // set point of the constant-voltage phase under way, else 0
 
+	// The last trial step of solveCV, reused when its current is the answer.
+	trialA, trialV0, trialV1 float64
+	trialS                   cell.State
+
 	out     outcome
 	cut     bool // phases closed at the target
 	inPhase bool
@@ -163,6 +167,20 @@ func (r *run) powerCurrent(pmax float64) float64 {
 	return (-e + math.Sqrt(e*e+4*rt*pmax)) / (2 * rt)
 }
 
+// limitReached reports whether the phase time limit tstop, the simulation horizon or
+// the SOC ceiling has been reached, and which.
+func (r *run) limitReached(tstop float64) (event, bool) {
+	switch {
+	case r.t >= tstop-1e-9:
+		return evTimer, true
+	case r.t >= r.horizon-1e-9:
+		return evHorizon, true
+	case r.s.SOC >= r.e.set.SOCCeiling:
+		return evFull, true
+	}
+	return 0, false
+}
+
 // cc charges at constant current amax (or less, where the charger's power limit binds)
 // until the terminal voltage reaches vstop (0: no voltage stop), the state of charge
 // reaches 1, or the time reaches tstop.
@@ -171,14 +189,8 @@ func (r *run) cc(kind, powerKind PhaseKind, amax, vstop, tstop float64) event {
 	capAh := r.p.CapacityAh()
 	eta := r.p.Type.Efficiency()
 	for !r.done {
-		if r.t >= tstop-1e-9 {
-			return evTimer
-		}
-		if r.t >= r.horizon-1e-9 {
-			return evHorizon
-		}
-		if r.s.SOC >= r.e.set.SOCCeiling {
-			return evFull
+		if ev, stop := r.limitReached(tstop); stop {
+			return ev
 		}
 		a, k := amax, kind
 		if lim.pmax > 0 {
@@ -246,7 +258,9 @@ func (r *run) solveCV(vset, amax, guess, dt float64) (a float64, limited bool) {
 		r.e.evals++
 		s1 := r.s
 		r.p.Step(&s1, -a, dt, r.tk)
-		return 0.5*(v0+a*k0+r.volts(&s1, a)) - vset
+		v1 := r.volts(&s1, a)
+		r.trialA, r.trialV0, r.trialV1, r.trialS = a, v0+a*k0, v1, s1
+		return 0.5*(r.trialV0+v1) - vset
 	}
 	tol := 1e-9 * vset
 	lo, hi := 0.0, amax
@@ -321,14 +335,8 @@ func (r *run) cv(kind PhaseKind, vset, amax, aterm, tstop float64) event {
 	havePrev := false
 	var snap struct{ t, z, ah, wh float64 } // state at the start of the previous step
 	for !r.done {
-		if r.t >= tstop-1e-9 {
-			return evTimer
-		}
-		if r.t >= r.horizon-1e-9 {
-			return evHorizon
-		}
-		if r.s.SOC >= r.e.set.SOCCeiling {
-			return evFull
+		if ev, stop := r.limitReached(tstop); stop {
+			return ev
 		}
 		h := math.Min(dt, math.Min(set.MaxStepSeconds, math.Min(tstop-r.t, r.horizon-r.t)))
 		alim := amax
@@ -386,10 +394,17 @@ func (r *run) cv(kind PhaseKind, vset, amax, aterm, tstop float64) event {
 		prevA, prevMid, havePrev = a, r.t+h/2, true
 		guess = a * (1 - set.CurrentChange)
 		z0 := r.s.SOC
-		s1 := r.s
-		r.p.Step(&s1, -a, h, r.tk)
+		var s1 cell.State
+		var v0, v1 float64
+		if r.trialA == a {
+			s1, v0, v1 = r.trialS, r.trialV0, r.trialV1
+		} else {
+			s1 = r.s
+			r.p.Step(&s1, -a, h, r.tk)
+			v0, v1 = r.volts(&r.s, a), r.volts(&s1, a)
+		}
 		if s1.SOC < set.SOCCeiling {
-			r.commit(a, h, &s1, r.volts(&r.s, a), r.volts(&s1, a))
+			r.commit(a, h, &s1, v0, v1)
 			continue
 		}
 		if ceil := set.SOCCeiling; s1.SOC > z0 {
@@ -592,19 +607,39 @@ func (e *engine) lowestCurrent(deadline float64, res *Result) float64 {
 		}
 		return lim.imax
 	}
-	if timeTo(lim.ilo) <= deadline {
+	tlo := timeTo(lim.ilo)
+	if tlo <= deadline {
 		return lim.ilo
 	}
+	// Regula falsi (Illinois variant) in u = 1/current, in which the time to target is
+	// nearly linear while the charge is constant-current; the bracket [lo, hi] keeps
+	// lo too slow and hi fast enough, and hi is returned.
 	lo, hi := lim.ilo, lim.imax
+	glo, ghi := tlo-deadline, tmax-deadline
+	side := 0
 	for range 60 {
 		if hi-lo <= 1e-3*hi {
 			break
 		}
-		m := 0.5 * (lo + hi)
-		if timeTo(m) <= deadline {
-			hi = m
+		ulo, uhi := 1/lo, 1/hi
+		u := uhi - ghi*(ulo-uhi)/(glo-ghi)
+		m := 1 / u
+		if !(m > lo && m < hi) || math.IsInf(glo, 1) {
+			m = 0.5 * (lo + hi)
+		}
+		g := timeTo(m) - deadline
+		if g <= 0 {
+			hi, ghi = m, g
+			if side == -1 {
+				glo /= 2
+			}
+			side = -1
 		} else {
-			lo = m
+			lo, glo = m, g
+			if side == 1 {
+				ghi /= 2
+			}
+			side = 1
 		}
 	}
 	return hi
