@@ -151,7 +151,6 @@ type runtimeRow struct {
 type cellResult struct {
 	spec     cellSpec
 	fitted   *fit.Result
-	notes    []string
 	voltage  []voltageRow
 	soc      []socRow
 	runtime  []runtimeRow
