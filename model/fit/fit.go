@@ -467,19 +467,25 @@ func restCorrection(base *table.Curve, rests []RestPoint) (func(z float64) float
 	return func(z float64) float64 { return interpHold(cz, cd, []float64{z})[0] }, rms
 }
 
-// interpHold interpolates (x, y) linearly at each g, holding the end values beyond;
-// x need not be sorted.
-func interpHold(x, y, g []float64) []float64 {
+// sortedPairs returns copies of x and y ordered by x (stable).
+func sortedPairs(x, y []float64) (xs, ys []float64) {
 	idx := make([]int, len(x))
 	for i := range idx {
 		idx[i] = i
 	}
 	sort.SliceStable(idx, func(a, b int) bool { return x[idx[a]] < x[idx[b]] })
-	xs := make([]float64, len(x))
-	ys := make([]float64, len(x))
+	xs = make([]float64, len(x))
+	ys = make([]float64, len(x))
 	for i, j := range idx {
 		xs[i], ys[i] = x[j], y[j]
 	}
+	return xs, ys
+}
+
+// interpHold interpolates (x, y) linearly at each g, holding the end values beyond;
+// x need not be sorted.
+func interpHold(x, y, g []float64) []float64 {
+	xs, ys := sortedPairs(x, y)
 	out := make([]float64, len(g))
 	for k, v := range g {
 		switch {

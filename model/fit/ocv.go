@@ -279,16 +279,7 @@ func inBranch(i, amps float64) bool { return math.Abs(i-amps) <= 0.25*math.Abs(a
 // over |z − knot| ≤ w (widened up to 8·w when fewer than 3 samples fall inside). Knots
 // outside the branch's span are NaN.
 func smoothBranch(z, v, grid []float64, w float64) []float64 {
-	idx := make([]int, len(z))
-	for i := range idx {
-		idx[i] = i
-	}
-	sort.SliceStable(idx, func(a, b int) bool { return z[idx[a]] < z[idx[b]] })
-	zs := make([]float64, len(z))
-	vs := make([]float64, len(z))
-	for i, j := range idx {
-		zs[i], vs[i] = z[j], v[j]
-	}
+	zs, vs := sortedPairs(z, v)
 	lo, hi := zs[0], zs[len(zs)-1]
 	out := make([]float64, len(grid))
 	for k, g := range grid {
