@@ -262,3 +262,20 @@ func TestLifetimeReadsDatasets(t *testing.T) {
 		}
 	}
 }
+
+// FuzzReadCapacityTable feeds arbitrary text to the capacity table reader and the
+// projection: errors are fine, panics are not.
+func FuzzReadCapacityTable(f *testing.F) {
+	f.Add("cell_id,cycle,capacity_ah\nA,1,2.0\nA,2,1.99\n")
+	f.Add("discharge_index,capacity_ah,start_time_local\n1,1.8,2008-04-02T15:25:41.593\n2,,2008-04-03T15:25:41\n")
+	f.Add("cycle,dis_ah\n1,NaN\n2,Inf\n\"3\",\"x\n")
+	f.Fuzz(func(t *testing.T, text string) {
+		series, err := readCapacityTable(strings.NewReader(text), nil)
+		if err != nil {
+			return
+		}
+		for _, s := range series {
+			_, _, _ = projectLifetime(s, lifetimeOptions{fraction: 0.8})
+		}
+	})
+}

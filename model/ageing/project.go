@@ -14,10 +14,10 @@ import (
 // Problem is a capacity history to project: one capacity measurement per cycle index.
 type Problem struct {
 	// Cycles holds the cycle index of each measurement (a cycle count, an equivalent
-	// full cycle count or a discharge number), finite, ≥ 0 and strictly increasing.
+	// full cycle count or a discharge number), finite, 0–10⁹ and strictly increasing.
 	Cycles []float64
 	// Capacity holds the measured capacity at each cycle index, in Ah (or any consistent
-	// unit, e.g. state-of-health fractions with ReferenceAh = 1), finite and ≥ 0.
+	// unit, e.g. state-of-health fractions with ReferenceAh = 1), finite, 0–10⁹.
 	Capacity []float64
 	// Days optionally holds the elapsed time of each measurement in days, finite and
 	// non-decreasing; when set, the result also projects the day of end of life.
@@ -183,6 +183,10 @@ func (r *Result) tQuantile() float64 {
 var ErrTooFew = errors.New("too few capacity points")
 
 const minPoints = 5
+
+// maxMagnitude bounds capacities and cycle indices: no battery holds 10⁹ Ah or lives 10⁹
+// cycles, and the bound keeps sums of squares far from overflow.
+const maxMagnitude = 1e9
 
 // Project fits a capacity-fade trend to the history p and projects where it reaches end
 // of life; s may be nil for the defaults. The method is described in the package doc.
@@ -407,14 +411,14 @@ func (p *Problem) validate() error {
 	}
 	for i := range n {
 		c, q := p.Cycles[i], p.Capacity[i]
-		if !cell.Finite(c) || c < 0 {
-			return cell.Invalid("cycles", "point %d must be finite and ≥ 0, got %g", i, c)
+		if !cell.Finite(c) || c < 0 || c > maxMagnitude {
+			return cell.Invalid("cycles", "point %d must be a finite index in [0, %g], got %g", i, maxMagnitude, c)
 		}
 		if i > 0 && !(c > p.Cycles[i-1]) {
 			return cell.Invalid("cycles", "must increase strictly: point %d (%g) follows %g", i, c, p.Cycles[i-1])
 		}
-		if !cell.Finite(q) || q < 0 {
-			return cell.Invalid("capacity_amp_hours", "point %d must be finite and ≥ 0, got %g", i, q)
+		if !cell.Finite(q) || q < 0 || q > maxMagnitude {
+			return cell.Invalid("capacity_amp_hours", "point %d must be finite, ≥ 0 and at most %g, got %g", i, maxMagnitude, q)
 		}
 		if p.Days != nil {
 			d := p.Days[i]
@@ -426,7 +430,7 @@ func (p *Problem) validate() error {
 			}
 		}
 	}
-	if r := p.ReferenceAh; !cell.Finite(r) || r < 0 {
+	if r := p.ReferenceAh; !cell.Finite(r) || r < 0 || r > maxMagnitude {
 		return cell.Invalid("reference_capacity_amp_hours", "must be finite and > 0 (or 0 for the initial capacity), got %g", r)
 	}
 	return nil

@@ -210,6 +210,18 @@ func TestProjectNoEndOfLife(t *testing.T) {
 	if !math.IsInf(r.Cycles.Value, 1) || !math.IsInf(r.Cycles.High, 1) {
 		t.Errorf("Cycles = %+v; want +Inf value and upper bound", r.Cycles)
 	}
+	// A perfectly flat history: zero residuals, zero MAD, no crossing, and no failure.
+	flat := make([]float64, len(cycles))
+	for i := range flat {
+		flat[i] = 1.5
+	}
+	r, err = Project(Problem{Cycles: cycles, Capacity: flat}, nil)
+	if err != nil {
+		t.Fatalf("flat history: %v", err)
+	}
+	if !math.IsInf(r.Cycles.Value, 1) || !math.IsInf(r.Cycles.Low, 1) {
+		t.Errorf("flat history: Cycles = %+v; want no crossing", r.Cycles)
+	}
 }
 
 func TestProjectBadInput(t *testing.T) {
@@ -224,6 +236,7 @@ func TestProjectBadInput(t *testing.T) {
 	}{
 		{"nan capacity", func(p *Problem, _ *Settings) { p.Capacity[3] = math.NaN() }, "capacity_amp_hours"},
 		{"negative capacity", func(p *Problem, _ *Settings) { p.Capacity[3] = -1 }, "capacity_amp_hours"},
+		{"huge capacity", func(p *Problem, _ *Settings) { p.Capacity[3] = 1e300 }, "capacity_amp_hours"},
 		{"inf cycle", func(p *Problem, _ *Settings) { p.Cycles[19] = math.Inf(1) }, "cycles"},
 		{"cycle repeats", func(p *Problem, _ *Settings) { p.Cycles[5] = p.Cycles[4] }, "cycles"},
 		{"cycle backwards", func(p *Problem, _ *Settings) { p.Cycles[5] = 1 }, "cycles"},
