@@ -126,7 +126,7 @@ type Phase struct {
 
 // Totals are the cumulative figures at one point of the charge.
 type Totals struct {
-	Reached  bool    // whether the point is reached within the simulated horizon
+	Reached  bool    // whether the point is reached (see Result)
 	Seconds  float64 // time from the start of the charge
 	SOC      float64 // state of charge there (clamped to [0, 1])
 	ChargeAh float64 // charge into the pack, Ah
@@ -202,7 +202,10 @@ type Result struct {
 	// Phases run from the start to the target (cut there when the target is below full);
 	// a lead-acid plan to full ends with an open-ended float phase.
 	Phases []Phase
-	// Target is where the target SOC is reached, Full where the charge terminates.
+	// Target is where the target SOC is reached (a completed full charge reaches any
+	// target). Full is where the charge terminates; Full.Reached is false when it ends
+	// without the cell being full (charger voltage too low, nickel voltage ceiling or
+	// backup timer before full) or does not end within Settings.MaxSeconds.
 	Target, Full Totals
 	// Termination says what ended the full charge.
 	Termination Termination
