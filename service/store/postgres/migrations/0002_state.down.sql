@@ -1,0 +1,2 @@
+DROP TABLE health_records;
+DROP TABLE battery_states;
