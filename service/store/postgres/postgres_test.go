@@ -86,7 +86,12 @@ func freshSchema(t testing.TB) string {
 func openFresh(t testing.TB) store.Store {
 	t.Helper()
 	_, dsn := requireServer(t)
-	schema := freshSchema(t)
+	return openSchema(t, dsn, freshSchema(t))
+}
+
+// openSchema opens a store in schema and closes it at cleanup.
+func openSchema(t testing.TB, dsn, schema string) store.Store {
+	t.Helper()
 	s, err := Open(t.Context(), dsn, &Options{Schema: schema, MaxConns: 8})
 	if err != nil {
 		t.Fatalf("Open: %v", err)
@@ -102,4 +107,13 @@ func openFresh(t testing.TB) store.Store {
 func TestContract(t *testing.T) {
 	requireServer(t)
 	storetest.Run(t, openFresh)
+}
+
+// TestReplicas runs two stores on one schema, as two replicas would.
+func TestReplicas(t *testing.T) {
+	storetest.ReplicasTest(t, func(t testing.TB) (store.Store, store.Store) {
+		_, dsn := requireServer(t)
+		schema := freshSchema(t)
+		return openSchema(t, dsn, schema), openSchema(t, dsn, schema)
+	})
 }

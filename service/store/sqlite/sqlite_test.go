@@ -10,7 +10,13 @@ import (
 
 func openTemp(t testing.TB) store.Store {
 	t.Helper()
-	s, err := Open(t.Context(), filepath.Join(t.TempDir(), "voltcast.db"), nil)
+	return openPath(t, filepath.Join(t.TempDir(), "voltcast.db"))
+}
+
+// openPath opens the store at path and closes it at cleanup.
+func openPath(t testing.TB, path string) store.Store {
+	t.Helper()
+	s, err := Open(t.Context(), path, nil)
 	if err != nil {
 		t.Fatalf("Open: %v", err)
 	}
@@ -24,4 +30,12 @@ func openTemp(t testing.TB) store.Store {
 
 func TestContract(t *testing.T) {
 	storetest.Run(t, openTemp)
+}
+
+// TestReplicas runs two stores on one file, as two processes would.
+func TestReplicas(t *testing.T) {
+	storetest.ReplicasTest(t, func(t testing.TB) (store.Store, store.Store) {
+		path := filepath.Join(t.TempDir(), "shared.db")
+		return openPath(t, path), openPath(t, path)
+	})
 }
