@@ -1,0 +1,543 @@
+package service_test
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"io"
+	"log/slog"
+	"math"
+	"net"
+	"net/http"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"google.golang.org/genproto/googleapis/rpc/errdetails"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/credentials/insecure"
+	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/proto"
+	"google.golang.org/protobuf/types/known/fieldmaskpb"
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	"github.com/voltcast/voltcast/gateway"
+	"github.com/voltcast/voltcast/model/cell"
+	"github.com/voltcast/voltcast/model/chem"
+	"github.com/voltcast/voltcast/model/estimate"
+	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
+	"github.com/voltcast/voltcast/service"
+	"github.com/voltcast/voltcast/service/store/sqlite"
+)
+
+// env is an in-process server: the real gRPC server on a loopback port chosen by the
+// kernel, the REST gateway on another, and the embedded SQLite store in a temporary
+// directory.
+type env struct {
+	conn     *grpc.ClientConn
+	httpBase string
+	types    pb.BatteryTypeServiceClient
+	bats     pb.BatteryServiceClient
+	tel      pb.TelemetryServiceClient
+	svc      *service.Service
+}
+
+func newEnv(t *testing.T, limits service.Limits) *env {
+	t.Helper()
+	ctx := context.Background()
+	st, err := sqlite.Open(ctx, filepath.Join(t.TempDir(), "voltcast.db"), nil)
+	if err != nil {
+		t.Fatalf("sqlite.Open: %v", err)
+	}
+	log := slog.New(slog.NewTextHandler(t.Output(), &slog.HandlerOptions{Level: slog.LevelWarn}))
+	svc, err := service.New(service.Options{Store: st, Logger: log, Limits: limits})
+	if err != nil {
+		t.Fatalf("service.New: %v", err)
+	}
+	gs, _ := service.NewGRPCServer(svc, service.ServerOptions{Logger: log})
+	lis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	go gs.Serve(lis)
+	gw, err := gateway.New(ctx, gateway.Options{GRPCAddress: lis.Addr().String(), MaxBodyBytes: 1 << 20})
+	if err != nil {
+		t.Fatalf("gateway.New: %v", err)
+	}
+	hlis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	hs := &http.Server{Handler: gw.Handler()}
+	go hs.Serve(hlis)
+	conn, err := grpc.NewClient(lis.Addr().String(), grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		conn.Close()
+		hs.Close()
+		gw.Close()
+		gs.Stop()
+		if err := svc.Flush(context.Background()); err != nil {
+			t.Errorf("Flush: %v", err)
+		}
+		st.Close()
+	})
+	return &env{
+		conn: conn, httpBase: "http://" + hlis.Addr().String(), svc: svc,
+		types: pb.NewBatteryTypeServiceClient(conn),
+		bats:  pb.NewBatteryServiceClient(conn),
+		tel:   pb.NewTelemetryServiceClient(conn),
+	}
+}
+
+// do sends an HTTP request with a JSON body and decodes the JSON answer.
+func (e *env) do(t *testing.T, method, path, body string) (int, map[string]any) {
+	t.Helper()
+	req, err := http.NewRequest(method, e.httpBase+path, strings.NewReader(body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	var out map[string]any
+	if len(bytes.TrimSpace(b)) > 0 {
+		if err := json.Unmarshal(b, &out); err != nil {
+			t.Fatalf("%s %s: body is not JSON: %v\n%s", method, path, err, b)
+		}
+	}
+	return resp.StatusCode, out
+}
+
+// details returns the ErrorInfo reason and the BadRequest fields of a status error.
+func details(err error) (reason string, fields []string) {
+	for _, d := range status.Convert(err).Details() {
+		switch d := d.(type) {
+		case *errdetails.ErrorInfo:
+			reason = d.GetReason()
+		case *errdetails.BadRequest:
+			for _, v := range d.GetFieldViolations() {
+				fields = append(fields, v.GetField())
+			}
+		}
+	}
+	return reason, fields
+}
+
+func TestBatteryTypesCatalogue(t *testing.T) {
+	e := newEnv(t, service.Limits{})
+	ctx := context.Background()
+
+	// Listing in pages of 4 returns the whole catalogue once, in order, and then stops.
+	var names []string
+	tok := ""
+	for range 20 {
+		resp, err := e.types.ListBatteryTypes(ctx, &pb.ListBatteryTypesRequest{PageSize: 4, PageToken: tok})
+		if err != nil {
+			t.Fatalf("ListBatteryTypes: %v", err)
+		}
+		for _, bt := range resp.GetBatteryTypes() {
+			names = append(names, strings.TrimPrefix(bt.GetName(), "batteryTypes/"))
+			if !bt.GetBuiltIn() {
+				t.Errorf("%s: built_in = false", bt.GetName())
+			}
+		}
+		if tok = resp.GetNextPageToken(); tok == "" {
+			break
+		}
+	}
+	if want := chem.Names(); strings.Join(names, ",") != strings.Join(want, ",") {
+		t.Errorf("listed %v; want the catalogue %v", names, want)
+	}
+
+	// Get returns the catalogue's values (the model is the reference here: the API
+	// must not change them on the way).
+	want, err := chem.Lookup("generic-nmc-18650")
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/generic-nmc-18650"})
+	if err != nil {
+		t.Fatalf("GetBatteryType: %v", err)
+	}
+	bt := got.GetBatteryType()
+	if bt.GetCapacityAmpHours() != want.CapacityAh || bt.GetLimits().GetCutoffVoltageVolts() != want.Limits.CutoffVolts ||
+		bt.GetChemistry() != pb.Chemistry_CHEMISTRY_NMC || len(bt.GetRcBranches()) != len(want.Branches) {
+		t.Errorf("GetBatteryType = %v; want the values of chem.Lookup", bt)
+	}
+	_, y := want.OCV.Curve(0).Knot(want.OCV.Curve(0).Len() - 1)
+	if rows := bt.GetOpenCircuitVoltageVolts().GetRows(); len(rows) == 0 || rows[0].GetValues()[len(rows[0].GetValues())-1] != y {
+		t.Errorf("OCV table differs from the catalogue's")
+	}
+
+	// Errors: malformed name, unknown name, built-in delete, negative page size.
+	for _, c := range []struct {
+		call   func() error
+		code   codes.Code
+		reason string
+	}{
+		{func() error {
+			_, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "types/x"})
+			return err
+		}, codes.InvalidArgument, service.ReasonInvalidField},
+		{func() error {
+			_, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/none-such"})
+			return err
+		}, codes.NotFound, service.ReasonNotFound},
+		{func() error {
+			_, err := e.types.DeleteBatteryType(ctx, &pb.DeleteBatteryTypeRequest{Name: "batteryTypes/generic-nmc-18650"})
+			return err
+		}, codes.FailedPrecondition, service.ReasonBuiltIn},
+		{func() error {
+			_, err := e.types.ListBatteryTypes(ctx, &pb.ListBatteryTypesRequest{PageSize: -1})
+			return err
+		}, codes.InvalidArgument, service.ReasonInvalidField},
+		{func() error {
+			_, err := e.types.ListBatteryTypes(ctx, &pb.ListBatteryTypesRequest{PageToken: "garbage!"})
+			return err
+		}, codes.InvalidArgument, service.ReasonInvalidPageToken},
+	} {
+		err := c.call()
+		if reason, _ := details(err); status.Code(err) != c.code || reason != c.reason {
+			t.Errorf("error = %v (reason %q); want %v with reason %s", err, reason, c.code, c.reason)
+		}
+	}
+}
+
+func TestBatteryTypeRegister(t *testing.T) {
+	e := newEnv(t, service.Limits{})
+	ctx := context.Background()
+	base, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/generic-lfp-26650"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	in := proto.Clone(base.GetBatteryType()).(*pb.BatteryType)
+	in.DisplayName = "bench cell A"
+	in.CapacityAmpHours = 3.1
+
+	created, err := e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "bench-a", BatteryType: in})
+	if err != nil {
+		t.Fatalf("CreateBatteryType: %v", err)
+	}
+	if c := created.GetBatteryType(); c.GetName() != "batteryTypes/bench-a" || c.GetBuiltIn() || c.GetCapacityAmpHours() != 3.1 || c.GetDisplayName() != "bench cell A" {
+		t.Errorf("created %v", c)
+	}
+	// It lists after the catalogue.
+	resp, err := e.types.ListBatteryTypes(ctx, &pb.ListBatteryTypesRequest{PageSize: 1000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := len(resp.GetBatteryTypes()); n != len(chem.Names())+1 || resp.GetBatteryTypes()[n-1].GetName() != "batteryTypes/bench-a" {
+		t.Errorf("list has %d types, last %v", n, resp.GetBatteryTypes()[n-1].GetName())
+	}
+	// A built-in id is taken.
+	if _, err := e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "generic-lfp-26650", BatteryType: in}); status.Code(err) != codes.AlreadyExists {
+		t.Errorf("create with a built-in id: %v; want ALREADY_EXISTS", err)
+	}
+	// An invalid parameter set names the field, and stores nothing.
+	bad := proto.Clone(in).(*pb.BatteryType)
+	bad.Limits.CutoffVoltageVolts = math.NaN()
+	_, err = e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "bench-b", BatteryType: bad})
+	if _, fields := details(err); status.Code(err) != codes.InvalidArgument || len(fields) != 1 || fields[0] != "battery_type.limits.cutoff_voltage_volts" {
+		t.Errorf("NaN cut-off: %v (fields %v); want INVALID_ARGUMENT on battery_type.limits.cutoff_voltage_volts", err, fields)
+	}
+	if _, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/bench-b"}); status.Code(err) != codes.NotFound {
+		t.Errorf("rejected type was stored: %v", err)
+	}
+	// In use: a battery refers to it.
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "b1", Battery: &pb.Battery{BatteryType: "batteryTypes/bench-a", SeriesCount: 4, ParallelCount: 1}}); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := e.types.DeleteBatteryType(ctx, &pb.DeleteBatteryTypeRequest{Name: "batteryTypes/bench-a"}); status.Code(err) != codes.FailedPrecondition {
+		t.Errorf("delete a type in use: %v; want FAILED_PRECONDITION", err)
+	}
+	if _, err := e.bats.DeleteBattery(ctx, &pb.DeleteBatteryRequest{Name: "batteries/b1"}); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := e.types.DeleteBatteryType(ctx, &pb.DeleteBatteryTypeRequest{Name: "batteryTypes/bench-a"}); err != nil {
+		t.Errorf("DeleteBatteryType: %v", err)
+	}
+}
+
+func TestBatteriesCRUDOverRESTAndGRPC(t *testing.T) {
+	e := newEnv(t, service.Limits{})
+	ctx := context.Background()
+
+	code, body := e.do(t, "POST", "/v1/batteries?batteryId=bike-7", `{"batteryType":"batteryTypes/generic-nmc-18650","seriesCount":13,"parallelCount":4,"displayName":"cargo bike 7","labels":{"fleet":"north"},"initialStateOfCharge":0.8}`)
+	if code != http.StatusOK || body["name"] != "batteries/bike-7" {
+		t.Fatalf("POST /v1/batteries = %d %v", code, body)
+	}
+	state := body["state"].(map[string]any)
+	if state["initialized"] != true || state["stateOfCharge"] != 0.8 {
+		t.Errorf("initial state %v; want initialized at 0.8", state)
+	}
+
+	got, err := e.bats.GetBattery(ctx, &pb.GetBatteryRequest{Name: "batteries/bike-7"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b := got.GetBattery(); b.GetSeriesCount() != 13 || b.GetLabels()["fleet"] != "north" || b.GetDisplayName() != "cargo bike 7" {
+		t.Errorf("GetBattery = %v", b)
+	}
+
+	// Update the labels only; the display name stays.
+	up, err := e.bats.UpdateBattery(ctx, &pb.UpdateBatteryRequest{
+		Battery:    &pb.Battery{Name: "batteries/bike-7", Labels: map[string]string{"fleet": "south"}, DisplayName: "ignored"},
+		UpdateMask: &fieldmaskpb.FieldMask{Paths: []string{"labels"}},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if b := up.GetBattery(); b.GetLabels()["fleet"] != "south" || b.GetDisplayName() != "cargo bike 7" {
+		t.Errorf("UpdateBattery = %v", b)
+	}
+	// A stale etag is ABORTED.
+	_, err = e.bats.UpdateBattery(ctx, &pb.UpdateBatteryRequest{
+		Battery:    &pb.Battery{Name: "batteries/bike-7", DisplayName: "x", Etag: got.GetBattery().GetEtag()},
+		UpdateMask: &fieldmaskpb.FieldMask{Paths: []string{"display_name"}},
+	})
+	if status.Code(err) != codes.Aborted {
+		t.Errorf("update with a stale etag: %v; want ABORTED", err)
+	}
+	// Immutable fields cannot be in the mask.
+	_, err = e.bats.UpdateBattery(ctx, &pb.UpdateBatteryRequest{
+		Battery:    &pb.Battery{Name: "batteries/bike-7", SeriesCount: 2},
+		UpdateMask: &fieldmaskpb.FieldMask{Paths: []string{"series_count"}},
+	})
+	if _, fields := details(err); status.Code(err) != codes.InvalidArgument || len(fields) == 0 || fields[0] != "update_mask" {
+		t.Errorf("update of series_count: %v; want INVALID_ARGUMENT on update_mask", err)
+	}
+
+	// Bad input over REST: every problem named, HTTP 400, nothing stored.
+	code, body = e.do(t, "POST", "/v1/batteries?batteryId=Bad_Id", `{"batteryType":"batteryTypes/generic-nmc-18650","seriesCount":0,"parallelCount":4,"initialStateOfCharge":1.5}`)
+	if code != http.StatusBadRequest {
+		t.Fatalf("bad create = %d %v; want 400", code, body)
+	}
+	var fields []string
+	for _, d := range body["details"].([]any) {
+		d := d.(map[string]any)
+		if d["@type"] == "type.googleapis.com/google.rpc.BadRequest" {
+			for _, v := range d["fieldViolations"].([]any) {
+				fields = append(fields, v.(map[string]any)["field"].(string))
+			}
+		}
+	}
+	if want := "battery_id,battery.series_count,battery.initial_state_of_charge"; strings.Join(fields, ",") != want {
+		t.Errorf("field violations %v; want %s", fields, want)
+	}
+	code, _ = e.do(t, "POST", "/v1/batteries?batteryId=b2", `{"batteryType":"batteryTypes/generic-nmc-18650","seriesCount":1,"parallelCount":1,"unknownField":1}`)
+	if code != http.StatusBadRequest {
+		t.Errorf("unknown JSON field = %d; want 400", code)
+	}
+	code, _ = e.do(t, "POST", "/v1/batteries?batteryId=b3", `{"batteryType":"batteryTypes/none","seriesCount":1,"parallelCount":1}`)
+	if code != http.StatusNotFound {
+		t.Errorf("unknown type = %d; want 404", code)
+	}
+	code, body = e.do(t, "GET", "/v1/batteries", "")
+	if code != http.StatusOK || len(body["batteries"].([]any)) != 1 {
+		t.Errorf("GET /v1/batteries = %d %v; want the one battery", code, body)
+	}
+	code, _ = e.do(t, "DELETE", "/v1/batteries/bike-7", "")
+	if code != http.StatusOK {
+		t.Errorf("DELETE = %d", code)
+	}
+	code, _ = e.do(t, "GET", "/v1/batteries/bike-7", "")
+	if code != http.StatusNotFound {
+		t.Errorf("GET after DELETE = %d; want 404", code)
+	}
+}
+
+// samples makes a discharge of a rested pack: constant current i for n samples one
+// second apart, the voltage from the model itself (the pack's OCV minus the ohmic and
+// RC drops as cell.Pack.Step evolves them).
+func samples(pack cell.Pack, soc0, i float64, n int) (offsets, cur, volt []float64) {
+	st := cell.State{SOC: soc0}
+	tk := cell.Kelvin(25)
+	for k := range n {
+		if k > 0 {
+			pack.Step(&st, i, 1, tk)
+		}
+		ik := i
+		if k == 0 {
+			ik = 0 // the first sample is the rested voltage the estimate starts from
+		}
+		offsets = append(offsets, float64(k))
+		cur = append(cur, ik)
+		volt = append(volt, pack.Voltage(&st, ik, tk))
+	}
+	return offsets, cur, volt
+}
+
+func TestTelemetryIngestIdempotentAndEqualToModel(t *testing.T) {
+	e := newEnv(t, service.Limits{PersistEverySamples: 50})
+	ctx := context.Background()
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "shop-ups", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 4, ParallelCount: 2}}); err != nil {
+		t.Fatal(err)
+	}
+	typ, _ := chem.Lookup("generic-nmc-18650")
+	pack, _ := cell.NewPack(typ, 4, 2)
+	off, cur, volt := samples(pack, 0.9, 2.5, 120)
+	base := time.Date(2026, 3, 1, 8, 0, 0, 0, time.UTC)
+	seq := make([]int64, len(off))
+	for k := range seq {
+		seq[k] = int64(1000 + k)
+	}
+	block := func(from, to int) *pb.SampleBlock {
+		return &pb.SampleBlock{Battery: "batteries/shop-ups", SequenceNumbers: seq[from:to], BaseTime: timestamppb.New(base),
+			TimeOffsetsSeconds: off[from:to], CurrentAmps: cur[from:to], VoltageVolts: volt[from:to], TemperatureCelsius: []float64{25}}
+	}
+	resp, err := e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{block(0, 80)}})
+	if err != nil {
+		t.Fatalf("IngestTelemetry: %v", err)
+	}
+	r := resp.GetResults()[0]
+	if r.GetError() != nil || r.GetAppliedCount() != 80 || r.GetState().GetAppliedSequenceNumber() != seq[79] {
+		t.Fatalf("first batch: %v", r)
+	}
+	if d := r.GetState().GetDurableSequenceNumber(); d != seq[79] {
+		// 80 applied ≥ PersistEverySamples (50): persisted at the end of the block.
+		t.Errorf("durable watermark %d; want %d", d, seq[79])
+	}
+	// Resend overlapping: 60..120. 20 duplicates, 40 new.
+	resp, err = e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{block(60, 120)}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r = resp.GetResults()[0]
+	if r.GetAppliedCount() != 40 || r.GetDuplicateCount() != 20 || r.GetRejectedCount() != 0 {
+		t.Errorf("overlapping batch: applied %d, duplicates %d, rejected %d; want 40, 20, 0", r.GetAppliedCount(), r.GetDuplicateCount(), r.GetRejectedCount())
+	}
+
+	// The same samples through the model directly give the same estimate.
+	settings := estimate.Settings{Health: true}
+	f, err := estimate.NewEKF(pack, 0.5, &settings)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := f.InitFromVoltage(volt[0], cell.Kelvin(25)); err != nil {
+		t.Fatal(err)
+	}
+	var last estimate.Estimate
+	for k := range off {
+		tk := base.Add(time.Duration(off[k] * 1e9))
+		if last, err = f.Update(estimate.Sample{Time: float64(tk.UnixNano()) / 1e9, Current: cur[k], Voltage: volt[k], Temperature: cell.Kelvin(25)}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	got := r.GetState()
+	if math.Abs(got.GetStateOfCharge()-last.SOC) > 1e-12 || math.Abs(got.GetStateOfChargeStddev()-last.SOCSigma) > 1e-12 {
+		t.Errorf("service SOC %g ± %g; model directly %g ± %g", got.GetStateOfCharge(), got.GetStateOfChargeStddev(), last.SOC, last.SOCSigma)
+	}
+	// Equivalent full cycles by their definition (DESIGN.md: discharged charge over
+	// the rated capacity): 119 one-second intervals at 2.5 A over the pack's rating.
+	wantCycles := 2.5 * 119 / 3600 / pack.RatedCapacityAh()
+	if math.Abs(got.GetEquivalentFullCycles()-wantCycles) > 1e-9 {
+		t.Errorf("equivalent cycles %g; want %g", got.GetEquivalentFullCycles(), wantCycles)
+	}
+
+	// Bad samples are rejected one by one; the rest of the block applies.
+	bad := block(0, 0)
+	bad.SequenceNumbers = []int64{5000, 5001, 5002, 5003}
+	bad.TimeOffsetsSeconds = []float64{200, 201, 100, 203}
+	bad.CurrentAmps = []float64{1, math.NaN(), 1, 1}
+	bad.VoltageVolts = []float64{volt[119], volt[119], volt[119], -1}
+	bad.TemperatureCelsius = nil
+	resp, err = e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{bad, {Battery: "batteries/missing", BaseTime: timestamppb.New(base), TimeOffsetsSeconds: []float64{1}, CurrentAmps: []float64{1}, VoltageVolts: []float64{3}}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r = resp.GetResults()[0]
+	var reasons []string
+	for _, rj := range r.GetRejections() {
+		reasons = append(reasons, rj.GetReason().String())
+	}
+	if r.GetAppliedCount() != 1 || r.GetRejectedCount() != 3 || strings.Join(reasons, ",") !=
+		"SAMPLE_REJECTION_REASON_NOT_FINITE,SAMPLE_REJECTION_REASON_TIME_BACKWARDS,SAMPLE_REJECTION_REASON_OUT_OF_RANGE" {
+		t.Errorf("bad block: applied %d rejected %d reasons %v", r.GetAppliedCount(), r.GetRejectedCount(), reasons)
+	}
+	if be := resp.GetResults()[1].GetError(); be.GetCode() != "NOT_FOUND" || be.GetReason() != service.ReasonNotFound {
+		t.Errorf("block of a missing battery: %v; want NOT_FOUND", be)
+	}
+
+	// Over REST: int64 sequence numbers as JSON strings, same semantics.
+	code, body := e.do(t, "POST", "/v1/batteries:ingestTelemetry", `{"blocks":[{"battery":"batteries/shop-ups","sequenceNumbers":["5000","6000"],"baseTime":"2026-03-01T08:10:00Z","timeOffsetsSeconds":[0,1],"currentAmps":[1,1],"voltageVolts":[`+
+		jsonNum(volt[119])+","+jsonNum(volt[119])+`]}]}`)
+	if code != http.StatusOK {
+		t.Fatalf("REST ingest = %d %v", code, body)
+	}
+	res := body["results"].([]any)[0].(map[string]any)
+	if res["appliedCount"] != 1.0 || res["duplicateCount"] != 1.0 {
+		t.Errorf("REST ingest result %v; want 1 applied, 1 duplicate", res)
+	}
+
+	// Too large a batch is refused as a whole.
+	e2 := newEnv(t, service.Limits{MaxBatchSamples: 10})
+	_, err = e2.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{block(0, 11)}})
+	if reason, _ := details(err); status.Code(err) != codes.InvalidArgument || reason != service.ReasonRequestTooLarge {
+		t.Errorf("oversized batch: %v; want INVALID_ARGUMENT REQUEST_TOO_LARGE", err)
+	}
+}
+
+func jsonNum(v float64) string {
+	b, _ := json.Marshal(v)
+	return string(b)
+}
+
+func TestTelemetryStream(t *testing.T) {
+	e := newEnv(t, service.Limits{})
+	ctx := context.Background()
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "drone-1", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-lfp-26650", SeriesCount: 6, ParallelCount: 1}}); err != nil {
+		t.Fatal(err)
+	}
+	typ, _ := chem.Lookup("generic-lfp-26650")
+	pack, _ := cell.NewPack(typ, 6, 1)
+	off, cur, volt := samples(pack, 0.7, 3, 30)
+	base := time.Date(2026, 3, 1, 9, 0, 0, 0, time.UTC)
+	stream, err := e.tel.StreamTelemetry(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := 0; k < 30; k += 10 {
+		if err := stream.Send(&pb.StreamTelemetryRequest{Block: &pb.SampleBlock{Battery: "batteries/drone-1", BaseTime: timestamppb.New(base),
+			TimeOffsetsSeconds: off[k : k+10], CurrentAmps: cur[k : k+10], VoltageVolts: volt[k : k+10]}}); err != nil {
+			t.Fatal(err)
+		}
+		resp, err := stream.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if r := resp.GetResult(); r.GetAppliedCount() != 10 {
+			t.Errorf("stream block %d: %v", k/10, r)
+		}
+	}
+	if err := stream.CloseSend(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := stream.Recv(); err != io.EOF {
+		t.Fatalf("stream end: %v", err)
+	}
+	// Closing the stream persisted the state: the durable watermark caught up. Without
+	// sequence numbers, the sample time in microseconds is the sequence number.
+	wantSeq := base.Add(29 * time.Second).UnixMicro()
+	deadline := time.Now().Add(5 * time.Second)
+	for {
+		got, err := e.bats.GetBattery(ctx, &pb.GetBatteryRequest{Name: "batteries/drone-1"})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.GetBattery().GetState().GetDurableSequenceNumber() == wantSeq {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("durable watermark %d; want %d after the stream closed", got.GetBattery().GetState().GetDurableSequenceNumber(), wantSeq)
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+}
