@@ -27,6 +27,8 @@ import (
 	"github.com/voltcast/voltcast/model/cell"
 	"github.com/voltcast/voltcast/model/chem"
 	"github.com/voltcast/voltcast/model/estimate"
+	"github.com/voltcast/voltcast/model/forecast"
+	"github.com/voltcast/voltcast/model/sim"
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 	"github.com/voltcast/voltcast/service"
 	"github.com/voltcast/voltcast/service/store/sqlite"
@@ -539,5 +541,81 @@ func TestTelemetryStream(t *testing.T) {
 			t.Fatalf("durable watermark %d; want %d after the stream closed", got.GetBattery().GetState().GetDurableSequenceNumber(), wantSeq)
 		}
 		time.Sleep(10 * time.Millisecond)
+	}
+}
+
+// TestForecastRuntime checks the ad-hoc and stored forecasts against calling
+// model/forecast directly with the same problem (the model is validated on its own
+// against REFERENCE.md; here the API must neither change nor lose anything), and the
+// validation of bad loads.
+func TestForecastRuntime(t *testing.T) {
+	e := newEnv(t, service.Limits{})
+	ctx := context.Background()
+	fc := pb.NewForecastServiceClient(e.conn)
+
+	typ, _ := chem.Lookup("generic-nmc-18650")
+	pack, _ := cell.NewPack(typ, 13, 4)
+	prob := forecast.Problem{Problem: sim.Problem{Pack: pack, Initial: cell.State{SOC: 0.8}, Celsius: 25, Load: sim.ConstantPower(350)}, SOCSigma: 0.03}
+	want, err := forecast.Run(nil, &prob, &forecast.Settings{Horizon: (30 * 24 * time.Hour).Seconds()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := fc.ForecastRuntime(ctx, &pb.ForecastRuntimeRequest{
+		Pack: &pb.PackSpec{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 13, ParallelCount: 4, StateOfCharge: 0.8, StateOfChargeStddev: 0.03},
+		Load: &pb.Load{Kind: &pb.Load_PowerWatts{PowerWatts: 350}},
+	})
+	if err != nil {
+		t.Fatalf("ForecastRuntime: %v", err)
+	}
+	if d := got.GetRuntime().AsDuration().Seconds() - want.Seconds; math.Abs(d) > 1e-6 ||
+		math.Abs(got.GetRuntimeLower().AsDuration().Seconds()-want.LowSeconds) > 1e-6 ||
+		math.Abs(got.GetEnergyWattHours()-want.WattHours) > 1e-9 ||
+		got.GetEndReason() != map[forecast.Status]pb.RuntimeEndReason{
+			forecast.StatusCutoff: pb.RuntimeEndReason_RUNTIME_END_REASON_CUTOFF_VOLTAGE,
+			forecast.StatusEmpty:  pb.RuntimeEndReason_RUNTIME_END_REASON_EMPTY,
+		}[want.Status] {
+		t.Errorf("ForecastRuntime = %v; model directly: %gs (%g..%g), %g Wh, %v", got, want.Seconds, want.LowSeconds, want.HighSeconds, want.WattHours, want.Status)
+	}
+
+	// Over REST, ad hoc, a repeating duty cycle.
+	code, body := e.do(t, "POST", "/v1/batteries:forecastRuntime", `{"pack":{"batteryType":"batteryTypes/generic-lfp-26650","seriesCount":4,"parallelCount":1,"stateOfCharge":1},
+		"load":{"dutyCycle":{"steps":[{"duration":"60s","currentAmps":5},{"duration":"30s","currentAmps":0}]}}}`)
+	if r := body["endReason"]; code != http.StatusOK || (r != "RUNTIME_END_REASON_CUTOFF_VOLTAGE" && r != "RUNTIME_END_REASON_EMPTY") {
+		t.Errorf("REST duty-cycle forecast = %d %v", code, body)
+	}
+
+	// A stored battery forecasts from its tracked state.
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "bike-1", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 13, ParallelCount: 4, InitialStateOfCharge: proto.Float64(0.8)}}); err != nil {
+		t.Fatal(err)
+	}
+	code, body = e.do(t, "POST", "/v1/batteries/bike-1:forecastRuntime", `{"load":{"powerWatts":350}}`)
+	if code != http.StatusOK {
+		t.Fatalf("stored forecast = %d %v", code, body)
+	}
+	rt, _ := time.ParseDuration(body["runtime"].(string))
+	if math.Abs(rt.Seconds()-want.Seconds) > 1e-3 {
+		// Same pack and SOC; the stored estimate's σ differs, the nominal runtime not.
+		t.Errorf("stored forecast runtime %v; want %gs as for the same ad-hoc pack", rt, want.Seconds)
+	}
+
+	for _, c := range []struct {
+		req   *pb.ForecastRuntimeRequest
+		field string
+	}{
+		{&pb.ForecastRuntimeRequest{Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: 1}}}, "battery"},
+		{&pb.ForecastRuntimeRequest{Battery: "batteries/bike-1"}, "load"},
+		{&pb.ForecastRuntimeRequest{Battery: "batteries/bike-1", Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: -3}}}, "load.current_amps"},
+		{&pb.ForecastRuntimeRequest{Battery: "batteries/bike-1", Load: &pb.Load{Kind: &pb.Load_PowerWatts{PowerWatts: math.Inf(1)}}}, "load.power_watts"},
+		{&pb.ForecastRuntimeRequest{Battery: "batteries/bike-1", Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: 1}}, TemperatureCelsius: proto.Float64(300)}, "temperature_celsius"},
+		{&pb.ForecastRuntimeRequest{Pack: &pb.PackSpec{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 1, ParallelCount: 1, StateOfCharge: math.NaN()}, Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: 1}}}, "pack.state_of_charge"},
+	} {
+		_, err := fc.ForecastRuntime(ctx, c.req)
+		if _, fields := details(err); status.Code(err) != codes.InvalidArgument || len(fields) == 0 || fields[0] != c.field {
+			t.Errorf("ForecastRuntime(%v) = %v (fields %v); want INVALID_ARGUMENT on %s", c.req, err, fields, c.field)
+		}
+	}
+	_, err = fc.ForecastRuntime(ctx, &pb.ForecastRuntimeRequest{Battery: "batteries/none", Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: 1}}})
+	if status.Code(err) != codes.NotFound {
+		t.Errorf("forecast of a missing battery: %v; want NOT_FOUND", err)
 	}
 }
