@@ -4,6 +4,7 @@ import (
 	"context"
 	"log/slog"
 	"runtime/debug"
+	"strings"
 	"time"
 
 	"go.opentelemetry.io/contrib/instrumentation/google.golang.org/grpc/otelgrpc"
@@ -88,10 +89,13 @@ func recoverStream(log *slog.Logger) grpc.StreamServerInterceptor {
 	}
 }
 
-// logAttrs are the attributes of a request's log line.
+// logRequest writes the one log line of a request, with its trace id.
 func logRequest(ctx context.Context, log *slog.Logger, method string, start time.Time, err error) {
 	st := status.Convert(err)
 	level := slog.LevelInfo
+	if strings.HasPrefix(method, "/grpc.health.v1.") {
+		level = slog.LevelDebug // probes every few seconds would drown the log
+	}
 	switch st.Code() {
 	case codes.Internal, codes.Unknown, codes.DataLoss:
 		level = slog.LevelError
