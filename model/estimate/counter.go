@@ -99,6 +99,9 @@ func (c *Counter) Update(s Sample) (Estimate, error) {
 		dz := c.cs.SOC - z
 		g := sg.dt / q
 		c.socVar += c.cfg.currentVar*g*g + c.cfg.socVarRate*sg.dt + c.cfg.gainVar*dz*dz
+		if sg.gap {
+			c.socVar += gapVar(c.cfg.gapVarRate*sg.dt, c.socVar)
+		}
 	}
 	c.clk = pl.clk
 	flags |= tempFlag(c.pack.Type, c.tmin, c.tmax, s.Current, s.Temperature)

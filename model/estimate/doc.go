@@ -39,7 +39,26 @@
 // next sample instead. Either way a current is never held for longer than
 // [Settings.MaxHold] (default 60 s): the rest of a longer interval is a gap in the log
 // and is treated as a rest at zero current, across which the RC branches relax exactly
-// (the step is exact for any length, so a gap of hours is a rest, not a jump).
+// (the step is exact for any length, so a gap of hours is a rest, not a jump). Because
+// the pack may nevertheless have been used or charged while nothing was logged, the SOC
+// uncertainty grows across a gap ([Settings.GapSOCDrift]), so the first voltage after
+// it can correct the SOC.
+//
+// # Noise model
+//
+// The measurement noise is the voltage sensor's noise plus the model's error, scaled to
+// the pack. Model error is not white: it follows the operating point and stays
+// correlated for minutes, so the model part is scaled by ModelCorrelationTime/Δt for
+// samples closer than that ([Settings.ModelCorrelationTime]); without this a filter fed
+// at 1 Hz would treat one slowly varying model error as thousands of independent
+// observations and become overconfident. The process noise is the current sensor's
+// noise through the input column of the Jacobian, an SOC random walk (current-sensor
+// offset), a charge-gain error proportional to the charge passed, a small random walk on
+// the RC and hysteresis voltages, and, for the health states, their slow drifts.
+// SOCSigma is the filter's uncertainty given that model: a type whose voltage error is
+// larger than Settings.ModelSigma says (an unfitted type, or the voltage knee at the end
+// of a discharge, which few equivalent circuits capture) gives larger SOC errors than
+// SOCSigma suggests. Set ModelSigma to the fit's voltage RMSE when it is known.
 //
 // # Robustness
 //
@@ -47,10 +66,13 @@
 // checked for positive definiteness by a Cholesky factorisation; a failing covariance is
 // repaired and the sample flagged. A measurement whose normalised innovation squared
 // exceeds a chi-square gate is rejected as an outlier (the prediction is kept, the
-// voltage is not used) and counted; after [Settings.MaxRejections] consecutive
-// rejections the filter concludes that its own state is wrong rather than the sensor,
-// inflates the covariance of its dynamic states and accepts the sample, so it cannot
-// lock itself out. While the pack rests (|i| small for [Settings.RestDuration]) the
+// voltage is not used) and counted. After [Settings.MaxRejections] consecutive
+// implausible innovations (rejected, or beyond 3σ), or when the normalised innovation
+// averages beyond 1.5 over ten model-error correlation times (10 min), the filter
+// concludes that its own state is wrong rather than the sensor, inflates the covariance
+// of its dynamic states (the SOC standard deviation to at most 0.2) and accepts the
+// sample, so it can neither lock itself out nor crawl towards the truth with a tiny
+// gain. While the pack rests (|i| small for [Settings.RestDuration]) the
 // voltage is close to the OCV and the measurement is trusted more.
 //
 // # Errors and bad input

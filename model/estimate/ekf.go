@@ -19,6 +19,7 @@ type EKF struct {
 	x          vec // state mean
 	clk        clock
 	rejectRun  int
+	bias       float64 // running mean of the normalised innovation
 	counters   Counters
 	floor      vec // smallest variances kept by a repair
 	a          trans
@@ -127,7 +128,7 @@ func (f *EKF) reset(soc, socVar float64) {
 		f.f.p[l.ic][l.ic] = f.cfg.capVar0
 		f.f.p[l.ir][l.ir] = f.cfg.resVar0
 	}
-	f.rejectRun = 0
+	f.rejectRun, f.bias = 0, 0
 }
 
 // healthFactors returns the capacity and resistance factors in force: the estimates
@@ -180,6 +181,10 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 		e.Voltage, e.Innovation = math.NaN(), math.NaN()
 		return e, err
 	}
+	prevTime := math.Inf(-1)
+	if f.clk.started {
+		prevTime = f.clk.time
+	}
 	pl := f.cfg.plan(s, f.clk)
 	flags |= pl.flags
 	for _, sg := range pl.seg[:pl.n] {
@@ -189,27 +194,44 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 	flags |= tempFlag(f.pack.Type, f.tmin, f.tmax, s.Current, s.Temperature)
 
 	// Measurement update (scalar).
-	yhat, h, r := f.measurement(s.Current, s.Temperature, flags&FlagRest != 0)
+	yhat, h, r := f.measurement(s.Current, s.Temperature, flags&FlagRest != 0, s.Time-prevTime)
 	innov := s.Voltage - yhat
 	sv, ph := f.f.innovationVar(&h, r)
 	nis := innov * innov / sv
 	sigma := math.Sqrt(sv)
-	accept := true
-	if nis > f.cfg.gate {
+	// Gate and divergence watch. A consistent filter sees NIS above the gate with
+	// probability 1 − GateProbability and above suspectNIS (3σ) with probability
+	// 0.27 %, and its normalised innovations average to zero. A run of MaxRejections
+	// samples beyond 3σ, or a normalised innovation that averages beyond biasLimit over
+	// biasTime (ten model-error correlation times, 10 min by default), means the
+	// state, not the sensor, is wrong (a bad start, a jump the model did not see): the
+	// covariance is inflated and the measurement accepted. Without this the filter
+	// could stay locked out by its gate, or crawl towards the truth with a tiny gain
+	// when it is overconfident. The long averaging time keeps short model failures,
+	// such as the voltage knee at the end of a discharge, from triggering it.
+	if nis > math.Min(f.cfg.gate, suspectNIS) {
 		f.rejectRun++
-		if f.rejectRun < f.cfg.maxReject {
-			accept = false
-			flags |= FlagRejected
-			f.counters.Rejected++
-		} else {
-			f.inflate(innov*innov, sv, r)
-			sv, ph = f.f.innovationVar(&h, r)
-			flags |= FlagForced
-			f.counters.Forced++
-		}
+	} else {
+		f.rejectRun = 0
+	}
+	if dt := s.Time - prevTime; nis <= f.cfg.gate && dt < math.Inf(1) {
+		w := -math.Expm1(-dt / f.cfg.biasTime)
+		f.bias += w * (innov/sigma - f.bias)
+	}
+	accept := true
+	switch {
+	case f.rejectRun >= f.cfg.maxReject || math.Abs(f.bias) > biasLimit:
+		f.inflate(innov*innov, sv, r)
+		sv, ph = f.f.innovationVar(&h, r)
+		flags |= FlagForced
+		f.counters.Forced++
+		f.rejectRun, f.bias = 0, 0
+	case nis > f.cfg.gate:
+		accept = false
+		flags |= FlagRejected
+		f.counters.Rejected++
 	}
 	if accept {
-		f.rejectRun = 0
 		f.f.update(&f.x, &h, r, innov, sv, &ph)
 		f.counters.Updates++
 	}
@@ -261,6 +283,9 @@ func (f *EKF) predict(sg segment) {
 	// Process noise: the current sensor's noise through the input column, plus the
 	// random walks.
 	qd[0] = f.cfg.socVarRate*sg.dt + f.cfg.gainVar*dz*dz
+	if sg.gap {
+		qd[0] += gapVar(f.cfg.gapVarRate*sg.dt, f.f.p[0][0])
+	}
 	for k := range l.nb {
 		qd[1+k] = f.cfg.branchVar * sg.dt
 	}
@@ -345,10 +370,11 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 
 // measurement returns the modelled pack voltage at the mean for pack current i and
 // temperature tk (the expressions of cell.Pack.Voltage, in its order), the measurement
-// row H and the measurement noise variance. With S cells in series,
+// row H and the measurement noise variance for a sample dt seconds after the previous
+// one (+Inf for the first). With S cells in series,
 // y = S·(OCV(z) + h − ρR0(z)·ic − Σvₖ), so H = S·[dOCV/dz − ρ·dR0/dz·ic, −1 …, +1, 0,
 // −R0·ic].
-func (f *EKF) measurement(i, tk float64, rest bool) (yhat float64, h vec, r float64) {
+func (f *EKF) measurement(i, tk float64, rest bool, dt float64) (yhat float64, h vec, r float64) {
 	l := f.l
 	t := f.pack.Type
 	ns := float64(f.pack.Series)
@@ -383,6 +409,9 @@ func (f *EKF) measurement(i, tk float64, rest bool) (yhat float64, h vec, r floa
 	if rest {
 		model = f.cfg.restModelVar
 	}
+	if dt < f.cfg.modelTau {
+		model *= f.cfg.modelTau / dt
+	}
 	dydi := ns * rf * r0 / par
 	r = f.cfg.voltVar + model + dydi*dydi*f.cfg.currentVar
 	return yhat, h, r
@@ -390,13 +419,17 @@ func (f *EKF) measurement(i, tk float64, rest bool) (yhat float64, h vec, r floa
 
 // inflate scales the covariance of the dynamic states (SOC, RC, hysteresis) so that an
 // innovation e2 = e² becomes plausible: by α = (e² − r)/(s − r) where s is the
-// innovation variance. Scaling rows and columns by √α keeps P positive definite.
+// innovation variance, but never so far that the SOC standard deviation exceeds
+// maxInflatedSOCSigma (a voltage the model cannot explain at all, such as the knee at
+// the end of discharge, must not erase what the filter knows). Scaling rows and
+// columns by √α keeps P positive definite.
 func (f *EKF) inflate(e2, s, r float64) {
 	alpha := 1.0
 	if s > r {
 		alpha = (e2 - r) / (s - r)
 	}
-	alpha = math.Min(math.Max(alpha, 1), 1e6)
+	limit := maxInflatedSOCSigma * maxInflatedSOCSigma / f.f.p[0][0]
+	alpha = math.Min(math.Max(alpha, 1), math.Max(1, limit))
 	sq := math.Sqrt(alpha)
 	var d vec
 	for i := range f.l.n {
@@ -411,6 +444,29 @@ func (f *EKF) inflate(e2, s, r float64) {
 		}
 	}
 }
+
+// maxGapSOCSigma bounds the SOC standard deviation that gaps in the log can build up.
+const maxGapSOCSigma = 0.3
+
+// gapVar returns the SOC variance a gap adds to a variance p, limited so that the
+// total stays within maxGapSOCSigma.
+func gapVar(add, p float64) float64 {
+	return math.Max(0, math.Min(add, maxGapSOCSigma*maxGapSOCSigma-p))
+}
+
+// suspectNIS is the normalised innovation squared that a consistent filter exceeds
+// with probability 0.27 % (3σ): a run of such samples triggers covariance inflation.
+const suspectNIS = 9
+
+// biasLimit is the running mean of the normalised innovation beyond which the filter
+// concludes that its state is biased. Model error, being part of the predicted
+// innovation variance, keeps the mean well below 1; a state error of a few innovation
+// standard deviations takes it above.
+const biasLimit = 1.5
+
+// maxInflatedSOCSigma bounds the SOC standard deviation that a forced acceptance can
+// create.
+const maxInflatedSOCSigma = 0.2
 
 // clamp holds the states within their bounds and reports what it did.
 func (f *EKF) clamp() Flags {
@@ -458,7 +514,7 @@ func (f *EKF) State() State {
 		SOC: f.x[0], Covariance: f.f.p,
 		Started: f.clk.started, Time: f.clk.time, HeldCurrent: f.clk.heldCurrent,
 		HeldTemperature: f.clk.heldTemp, RestSeconds: f.clk.restSeconds,
-		RejectRun: f.rejectRun, Counters: f.counters,
+		RejectRun: f.rejectRun, InnovationMean: f.bias, Counters: f.counters,
 	}
 	for k := range l.nb {
 		st.BranchVolts[k] = f.x[1+k]
@@ -498,7 +554,7 @@ func (f *EKF) Restore(st State) error {
 	f.f.p = st.Covariance
 	f.clk = clock{started: st.Started, time: st.Time, heldCurrent: st.HeldCurrent,
 		heldTemp: st.HeldTemperature, restSeconds: st.RestSeconds}
-	f.rejectRun = st.RejectRun
+	f.rejectRun, f.bias = st.RejectRun, st.InnovationMean
 	f.counters = st.Counters
 	return nil
 }

@@ -33,8 +33,12 @@ type clock struct {
 	restSeconds float64 // time the current has been below the rest threshold
 }
 
-// segment is one interval over which current and temperature are constant.
-type segment struct{ i, dt, tk float64 }
+// segment is one interval over which current and temperature are constant. gap marks
+// the unlogged part of an interval longer than MaxHold, assumed to be a rest.
+type segment struct {
+	i, dt, tk float64
+	gap       bool
+}
 
 // plan is how one sample advances the model.
 type plan struct {
@@ -82,18 +86,18 @@ func (c *config) plan(s Sample, clk clock) plan {
 			p.flags |= FlagGap
 		}
 		if c.timing == SampleAndHold {
-			p.seg[0] = segment{clk.heldCurrent, hold, clk.heldTemp}
+			p.seg[0] = segment{clk.heldCurrent, hold, clk.heldTemp, false}
 			p.n = 1
 			if dt > hold {
-				p.seg[1] = segment{0, dt - hold, clk.heldTemp}
+				p.seg[1] = segment{0, dt - hold, clk.heldTemp, true}
 				p.n = 2
 			}
 		} else {
 			if dt > hold {
-				p.seg[p.n] = segment{0, dt - hold, s.Temperature}
+				p.seg[p.n] = segment{0, dt - hold, s.Temperature, true}
 				p.n++
 			}
-			p.seg[p.n] = segment{s.Current, hold, s.Temperature}
+			p.seg[p.n] = segment{s.Current, hold, s.Temperature, false}
 			p.n++
 		}
 		for _, sg := range p.seg[:p.n] {

@@ -48,7 +48,8 @@ type State struct {
 	HeldCurrent     float64 `json:"held_current"`     // A, current of the last sample
 	HeldTemperature float64 `json:"held_temperature"` // K, temperature of the last sample
 	RestSeconds     float64 `json:"rest_seconds"`     // time spent below the rest current
-	RejectRun       int     `json:"reject_run"`       // consecutive rejections so far
+	RejectRun       int     `json:"reject_run"`       // consecutive implausible innovations so far
+	InnovationMean  float64 `json:"innovation_mean"`  // running mean of the normalised innovation
 
 	Counters Counters `json:"counters"`
 }
@@ -96,7 +97,7 @@ func (l layout) check(st *State) error {
 	if f := st.ResistanceFactor; !cell.Finite(f) || f < resMin || f > resMax {
 		return cell.Invalid("state.resistance_factor", "must be in [%g, %g], got %g", resMin, resMax, f)
 	}
-	for _, v := range []float64{st.Time, st.HeldCurrent, st.HeldTemperature, st.RestSeconds} {
+	for _, v := range []float64{st.Time, st.HeldCurrent, st.HeldTemperature, st.RestSeconds, st.InnovationMean} {
 		if !cell.Finite(v) {
 			return cell.Invalid("state", "time, held inputs and rest time must be finite")
 		}
