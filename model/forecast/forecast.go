@@ -219,8 +219,9 @@ type Result struct {
 
 // Run forecasts prob and returns the result, with the trace (if asked for) appended to
 // dst[:0]. A nil settings selects the defaults. Run returns a [*cell.FieldError] for an
-// invalid problem or settings and never panics on one. It does not allocate unless a
-// trace, a warning or the validation of a type with RC branches needs it.
+// invalid problem or settings and never panics on one. Beyond validating the cell type
+// (cell.Type.Validate builds a few field names), Run allocates only for a trace or for
+// warnings.
 func Run(dst []sim.Sample, prob *Problem, settings *Settings) (Result, error) {
 	var set Settings
 	if settings != nil {
