@@ -53,7 +53,8 @@
 //
 // The service keeps each active battery's estimator in memory and writes it here
 // write-behind (on stream close, on shutdown, and every configured interval or number
-// of samples). A successful PutState is durable: SQLite commits with synchronous=FULL in
+// of samples), one battery with [States.PutState] or many in one transaction with
+// [States.PutStates]. A successful write is durable: SQLite commits with synchronous=FULL in
 // WAL mode and PostgreSQL with its commit guarantee, so it survives a process crash and,
 // given honest disks, a power loss. A crash of the service therefore loses at most the
 // samples applied in memory after the last successful PutState, i.e. those above the
@@ -76,5 +77,7 @@
 //
 // Errors wrap one of the sentinels below where one applies (inspect them with
 // [errors.Is]), and wrap the context's error when the context ended. Anything else is a
-// backend failure. The store does not log.
+// backend failure. A write cut short by its context or a lost connection may or may
+// not have taken effect (the commit can race the cancellation), but never in part;
+// re-read before retrying. The store does not log.
 package store

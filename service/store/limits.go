@@ -41,6 +41,8 @@ const (
 	MaxHealthLimit = 10000
 	// MaxHealthAppend is the most health records one append may carry.
 	MaxHealthAppend = 1000
+	// MaxStateBatch is the most writes one PutStates call may carry.
+	MaxStateBatch = 1000
 )
 
 // ValidID reports whether s is a valid id for a tenant, battery type, battery or

@@ -79,6 +79,32 @@ type States interface {
 	// not exist, and with [ErrInvalidArgument] when s.Watermark is behind the stored
 	// watermark. s.Version and s.UpdateTime are ignored.
 	PutState(ctx context.Context, tenant, batteryID string, expectedVersion int64, s State) (int64, error)
+	// PutStates writes several batteries' states in one transaction, so that a flush
+	// of many costs one disk sync instead of one each. Every write is its own
+	// compare-and-swap: results[i] holds the new version of writes[i], or the error
+	// PutState would have returned for it, and one write failing does not hold back
+	// the others. The error is for the call as a whole (the context ended, the backend
+	// failed); some writes may have happened even then, so re-read before retrying.
+	// At most [MaxStateBatch] writes per call.
+	PutStates(ctx context.Context, tenant string, writes []StateWrite) (results []StateResult, err error)
+}
+
+// StateWrite is one write of [States.PutStates].
+type StateWrite struct {
+	// BatteryID names the battery.
+	BatteryID string
+	// ExpectedVersion is as in [States.PutState].
+	ExpectedVersion int64
+	// State is the state to write.
+	State State
+}
+
+// StateResult is the outcome of one write of [States.PutStates].
+type StateResult struct {
+	// Version is the new version when Err is nil.
+	Version int64
+	// Err is the error PutState would have returned for this write.
+	Err error
 }
 
 // Health keeps each battery's compact health history.

@@ -69,19 +69,19 @@ func TestMigrations(t *testing.T) {
 	s.Close()
 
 	db := schemaDB(t, dsn, schema)
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 1); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 1); err != nil {
 		t.Fatalf("Migrate(1): %v", err)
 	}
 	if got, want := relations(t, admin, schema), []string{"batteries", "battery_labels", "battery_types", "schema_migrations", "store_meta", "store_versions"}; !slices.Equal(got, want) {
 		t.Errorf("relations at version 1 = %v; want %v", got, want)
 	}
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 0); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 0); err != nil {
 		t.Fatalf("Migrate(0): %v", err)
 	}
 	if got := relations(t, admin, schema); !slices.Equal(got, []string{"schema_migrations"}) {
 		t.Errorf("relations at version 0 = %v; want [schema_migrations]", got)
 	}
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), sqlstore.Latest); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, sqlstore.Latest); err != nil {
 		t.Fatalf("Migrate(latest): %v", err)
 	}
 	if got := relations(t, admin, schema); !slices.Equal(got, all) {

@@ -31,7 +31,6 @@ import (
 	"embed"
 	"errors"
 	"fmt"
-	"io/fs"
 	"strconv"
 	"time"
 
@@ -46,15 +45,9 @@ import (
 //go:embed migrations/*.sql
 var migrationFiles embed.FS
 
-// migrations returns the embedded migration files: NNNN_name.up.sql and
+// migrations holds the embedded migration files: NNNN_name.up.sql and
 // NNNN_name.down.sql.
-func migrations() fs.FS {
-	sub, err := fs.Sub(migrationFiles, "migrations")
-	if err != nil {
-		panic("postgres: embedded migrations: " + err.Error())
-	}
-	return sub
-}
+var migrations = sqlstore.MustSub(migrationFiles, "migrations")
 
 // Options tunes [Open]. The zero value (or nil) gives the defaults.
 type Options struct {
@@ -123,7 +116,7 @@ func Open(ctx context.Context, dsn string, opts *Options) (store.Store, error) {
 	if err := db.PingContext(ctx); err != nil {
 		return nil, errors.Join(fmt.Errorf("postgres: connect to %s:%d: %w", cfg.Host, cfg.Port, err), db.Close())
 	}
-	s, err := sqlstore.Open(ctx, sqlstore.Config{Dialect: dialect, Read: db, Write: db, Migrations: migrations()})
+	s, err := sqlstore.Open(ctx, sqlstore.Config{Dialect: dialect, Read: db, Write: db, Migrations: migrations})
 	if err != nil {
 		return nil, errors.Join(err, db.Close())
 	}

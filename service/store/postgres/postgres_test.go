@@ -117,3 +117,8 @@ func TestReplicas(t *testing.T) {
 		return openSchema(t, dsn, schema), openSchema(t, dsn, schema)
 	})
 }
+
+func BenchmarkPutState(b *testing.B) {
+	requireServer(b)
+	storetest.PutStateBench(b, openFresh)
+}

@@ -31,7 +31,7 @@ func tables(t *testing.T, db *sql.DB) []string {
 }
 
 func TestMigrations(t *testing.T) {
-	ms, err := sqlstore.LoadMigrations(migrations())
+	ms, err := sqlstore.LoadMigrations(migrations)
 	if err != nil {
 		t.Fatalf("LoadMigrations: %v", err)
 	}
@@ -73,25 +73,25 @@ func TestMigrations(t *testing.T) {
 	}
 
 	// Down to nothing and up again: the down files undo the up files exactly.
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 1); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 1); err != nil {
 		t.Fatalf("Migrate(1): %v", err)
 	}
 	if got, want := tables(t, db), []string{"batteries", "battery_labels", "battery_types", "schema_migrations", "store_meta", "store_versions"}; !slices.Equal(got, want) {
 		t.Errorf("tables at version 1 = %v; want %v", got, want)
 	}
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 0); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 0); err != nil {
 		t.Fatalf("Migrate(0): %v", err)
 	}
 	if got := tables(t, db); !slices.Equal(got, []string{"schema_migrations"}) {
 		t.Errorf("tables at version 0 = %v; want [schema_migrations]", got)
 	}
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), sqlstore.Latest); err != nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, sqlstore.Latest); err != nil {
 		t.Fatalf("Migrate(latest): %v", err)
 	}
 	if got := tables(t, db); !slices.Equal(got, all) {
 		t.Errorf("tables after down and up = %v; want %v", got, all)
 	}
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 4); err == nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 4); err == nil {
 		t.Errorf("Migrate(4) of 3 migrations: no error")
 	}
 
@@ -104,7 +104,7 @@ func TestMigrations(t *testing.T) {
 		t.Fatalf("Open(database at a newer version): %v", err)
 	}
 	s.Close()
-	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations(), 2); err == nil {
+	if err := sqlstore.Migrate(t.Context(), db, dialect, migrations, 2); err == nil {
 		t.Errorf("Migrate(2) from unknown version 4: no error")
 	}
 }

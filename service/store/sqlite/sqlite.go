@@ -29,7 +29,6 @@ import (
 	"embed"
 	"errors"
 	"fmt"
-	"io/fs"
 	"net/url"
 	"strings"
 	"time"
@@ -44,15 +43,9 @@ import (
 //go:embed migrations/*.sql
 var migrationFiles embed.FS
 
-// migrations returns the embedded migration files: NNNN_name.up.sql and
+// migrations holds the embedded migration files: NNNN_name.up.sql and
 // NNNN_name.down.sql.
-func migrations() fs.FS {
-	sub, err := fs.Sub(migrationFiles, "migrations")
-	if err != nil {
-		panic("sqlite: embedded migrations: " + err.Error())
-	}
-	return sub
-}
+var migrations = sqlstore.MustSub(migrationFiles, "migrations")
 
 // Options tunes [Open]. The zero value (or nil) gives the defaults.
 type Options struct {
@@ -141,7 +134,7 @@ func Open(ctx context.Context, path string, opts *Options) (store.Store, error) 
 	read.SetMaxIdleConns(o.Readers)
 	read.SetConnMaxLifetime(0)
 
-	s, err := sqlstore.Open(ctx, sqlstore.Config{Dialect: dialect, Read: read, Write: write, Migrations: migrations()})
+	s, err := sqlstore.Open(ctx, sqlstore.Config{Dialect: dialect, Read: read, Write: write, Migrations: migrations})
 	if err != nil {
 		return nil, errors.Join(fmt.Errorf("%w (file %q)", err, path), write.Close(), read.Close())
 	}

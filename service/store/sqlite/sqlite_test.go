@@ -39,3 +39,7 @@ func TestReplicas(t *testing.T) {
 		return openPath(t, path), openPath(t, path)
 	})
 }
+
+func BenchmarkPutState(b *testing.B) {
+	storetest.PutStateBench(b, openTemp)
+}

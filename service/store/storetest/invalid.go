@@ -191,6 +191,7 @@ func ContextCancelTest(t *testing.T, open Opener) {
 			"DeleteBattery":     s.DeleteBattery(ctx, tenantA, "bike-1", store.AnyVersion),
 			"GetState":          ignore(s.GetState(ctx, tenantA, "bike-1")),
 			"PutState":          ignore(s.PutState(ctx, tenantA, "bike-1", v, newState(2, 2, t0))),
+			"PutStates":         ignore(s.PutStates(ctx, tenantA, []store.StateWrite{{BatteryID: "bike-1", ExpectedVersion: v, State: newState(2, 2, t0)}})),
 			"AppendHealth":      s.AppendHealth(ctx, tenantA, "bike-1", []store.HealthRecord{record(t0, 0.9)}),
 			"ListHealth":        ignore(s.ListHealth(ctx, tenantA, "bike-1", store.HealthQuery{})),
 			"CreateCalibration": ignore(s.CreateCalibration(ctx, tenantA, store.Calibration{ID: "fit-1", Status: store.CalibrationPending}, "")),

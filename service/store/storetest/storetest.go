@@ -40,6 +40,7 @@ func Run(t *testing.T, open Opener) {
 		{"State", StateTest},
 		{"StateRace", StateRaceTest},
 		{"ConcurrentWriters", ConcurrentWritersTest},
+		{"PutStates", PutStatesTest},
 		{"Watermarks", WatermarksTest},
 		{"Health", HealthTest},
 		{"Calibrations", CalibrationsTest},

@@ -96,27 +96,14 @@ func (s *Store) CreateBattery(ctx context.Context, tenant string, b store.Batter
 			RETURNING version`,
 			tenant, b.ID, b.TypeName, b.Series, b.Parallel, b.DisplayName, labels,
 			nullString(requestID), s.timeArg(b.CreateTime)).Scan(&b.Version)
-		switch {
-		case err == nil:
-			return writeLabels(ctx, tx, tenant, b.ID, b.Labels, false)
-		case s.d.IsForeignKeyViolation(err):
+		if err != nil && s.d.IsForeignKeyViolation(err) {
 			return fmt.Errorf("%w: battery type %s was deleted meanwhile", store.ErrConflict, short(b.TypeName))
-		case !errors.Is(err, sql.ErrNoRows):
+		}
+		prev, err = replayOrExists(ctx, tx, err, "batteries", batteryCols, tenant, requestID, scanBattery)
+		if err != nil || prev != nil {
 			return err
 		}
-		// Nothing inserted: the id or the request id is taken.
-		if requestID != "" {
-			p, err := scanBattery(tx.QueryRowContext(ctx,
-				`SELECT `+batteryCols+` FROM batteries WHERE tenant = $1 AND request_id = $2`, tenant, requestID))
-			switch {
-			case err == nil:
-				prev = &p
-				return nil
-			case !errors.Is(err, sql.ErrNoRows):
-				return fmt.Errorf("look up request id: %w", err)
-			}
-		}
-		return store.ErrAlreadyExists
+		return writeLabels(ctx, tx, tenant, b.ID, b.Labels, false)
 	})
 	switch {
 	case err != nil:

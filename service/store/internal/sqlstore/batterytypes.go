@@ -41,24 +41,14 @@ func (s *Store) CreateBatteryType(ctx context.Context, tenant string, t store.Ba
 		RETURNING version`,
 		tenant, t.Name, t.DisplayName, t.Chemistry, t.Parameters, t.CalibrationID,
 		nullString(requestID), s.timeArg(t.CreateTime)).Scan(&t.Version)
+	prev, err := replayOrExists(ctx, s.write, err, "battery_types", typeCols, tenant, requestID, scanBatteryType)
 	switch {
-	case err == nil:
-		return t, nil
-	case !errors.Is(err, sql.ErrNoRows):
+	case err != nil:
 		return store.BatteryType{}, s.fail(ctx, op, err)
+	case prev != nil:
+		return *prev, nil
 	}
-	// Nothing inserted: the name or the request id is taken.
-	if requestID != "" {
-		prev, err := scanBatteryType(s.write.QueryRowContext(ctx,
-			`SELECT `+typeCols+` FROM battery_types WHERE tenant = $1 AND request_id = $2`, tenant, requestID))
-		switch {
-		case err == nil:
-			return prev, nil
-		case !errors.Is(err, sql.ErrNoRows):
-			return store.BatteryType{}, s.fail(ctx, op, fmt.Errorf("look up request id: %w", err))
-		}
-	}
-	return store.BatteryType{}, s.fail(ctx, op, store.ErrAlreadyExists)
+	return t, nil
 }
 
 // GetBatteryType implements [store.BatteryTypes].

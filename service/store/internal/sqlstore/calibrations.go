@@ -5,7 +5,6 @@ import (
 	"context"
 	"database/sql"
 	"errors"
-	"fmt"
 	"time"
 
 	"github.com/voltcast/voltcast/service/store"
@@ -46,23 +45,14 @@ func (s *Store) CreateCalibration(ctx context.Context, tenant string, c store.Ca
 		RETURNING version`,
 		tenant, c.ID, c.DisplayName, string(c.Status), nullBlob(c.Input), nullBlob(c.Report), c.TypeName,
 		c.Error, nullString(requestID), s.timeArg(c.CreateTime)).Scan(&c.Version)
+	prev, err := replayOrExists(ctx, s.write, err, "calibrations", calCols, tenant, requestID, scanCalibration)
 	switch {
-	case err == nil:
-		return c, nil
-	case !errors.Is(err, sql.ErrNoRows):
+	case err != nil:
 		return store.Calibration{}, s.fail(ctx, op, err)
+	case prev != nil:
+		return *prev, nil
 	}
-	if requestID != "" {
-		prev, err := scanCalibration(s.write.QueryRowContext(ctx,
-			`SELECT `+calCols+` FROM calibrations WHERE tenant = $1 AND request_id = $2`, tenant, requestID))
-		switch {
-		case err == nil:
-			return prev, nil
-		case !errors.Is(err, sql.ErrNoRows):
-			return store.Calibration{}, s.fail(ctx, op, fmt.Errorf("look up request id: %w", err))
-		}
-	}
-	return store.Calibration{}, s.fail(ctx, op, store.ErrAlreadyExists)
+	return c, nil
 }
 
 // GetCalibration implements [store.Calibrations].

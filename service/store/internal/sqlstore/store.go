@@ -88,6 +88,16 @@ func (s *Store) fail(ctx context.Context, op string, err error) error {
 	return fmt.Errorf("%s: %s: %w", s.d.Name, op, err)
 }
 
+// MustSub returns the subdirectory dir of an embedded file system; it panics if dir
+// is not a valid path, which is a programming error.
+func MustSub(fsys fs.FS, dir string) fs.FS {
+	sub, err := fs.Sub(fsys, dir)
+	if err != nil {
+		panic("sqlstore: " + err.Error())
+	}
+	return sub
+}
+
 // now returns the current time as the store keeps it.
 func now() time.Time { return normTime(time.Now()) }
 
@@ -187,6 +197,30 @@ func (s *Store) deleteRow(ctx context.Context, table, keyCol, tenant, key string
 		return missingOrMoved(ctx, s.write, `SELECT version FROM `+table+where, tenant, key)
 	}
 	return nil
+}
+
+// replayOrExists completes a create whose INSERT … ON CONFLICT DO NOTHING RETURNING
+// ended with insertErr. It returns nil, nil when the row was inserted. When nothing
+// was inserted it returns the row of table (read with cols and scan) that an earlier
+// call with the same requestID created (AIP-155), or else [store.ErrAlreadyExists].
+func replayOrExists[T any](ctx context.Context, q queryer, insertErr error, table, cols, tenant, requestID string,
+	scan func(scanner) (T, error)) (*T, error) {
+	switch {
+	case insertErr == nil:
+		return nil, nil
+	case !errors.Is(insertErr, sql.ErrNoRows):
+		return nil, insertErr
+	}
+	if requestID != "" {
+		prev, err := scan(q.QueryRowContext(ctx, `SELECT `+cols+` FROM `+table+` WHERE tenant = $1 AND request_id = $2`, tenant, requestID))
+		switch {
+		case err == nil:
+			return &prev, nil
+		case !errors.Is(err, sql.ErrNoRows):
+			return nil, fmt.Errorf("look up request id: %w", err)
+		}
+	}
+	return nil, store.ErrAlreadyExists
 }
 
 func checkExpected(v int64) error {
