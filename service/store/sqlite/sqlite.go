@@ -106,15 +106,7 @@ func Open(ctx context.Context, path string, opts *Options) (store.Store, error) 
 	if path == "" || strings.ContainsRune(path, '?') || strings.HasPrefix(path, "file:") || path == ":memory:" {
 		return nil, fmt.Errorf("sqlite: open %q: want a plain file path", path)
 	}
-	common := url.Values{}
-	common.Add("_pragma", fmt.Sprintf("busy_timeout(%d)", o.BusyTimeout.Milliseconds()))
-	common.Add("_pragma", "foreign_keys(1)")
-	common.Add("_pragma", "synchronous(FULL)")
-
-	wq := cloneValues(common)
-	wq.Add("_pragma", "journal_mode(WAL)")
-	wq.Set("_txlock", "immediate")
-	write, err := sql.Open("sqlite", path+"?"+wq.Encode())
+	write, err := sql.Open("sqlite", dsn(path, o, true))
 	if err != nil {
 		return nil, fmt.Errorf("sqlite: open %q: %w", path, err)
 	}
@@ -124,9 +116,7 @@ func Open(ctx context.Context, path string, opts *Options) (store.Store, error) 
 	write.SetMaxIdleConns(1)
 	write.SetConnMaxLifetime(0)
 
-	rq := cloneValues(common)
-	rq.Add("_pragma", "query_only(1)")
-	read, err := sql.Open("sqlite", path+"?"+rq.Encode())
+	read, err := sql.Open("sqlite", dsn(path, o, false))
 	if err != nil {
 		return nil, errors.Join(fmt.Errorf("sqlite: open %q: %w", path, err), write.Close())
 	}
@@ -141,10 +131,18 @@ func Open(ctx context.Context, path string, opts *Options) (store.Store, error) 
 	return s, nil
 }
 
-func cloneValues(v url.Values) url.Values {
-	out := url.Values{}
-	for k, vs := range v {
-		out[k] = append([]string(nil), vs...)
+// dsn returns the driver's data source name for the file at path: the write
+// connection, or a read-only one.
+func dsn(path string, o Options, write bool) string {
+	q := url.Values{}
+	q.Add("_pragma", fmt.Sprintf("busy_timeout(%d)", o.BusyTimeout.Milliseconds()))
+	q.Add("_pragma", "foreign_keys(1)")
+	q.Add("_pragma", "synchronous(FULL)")
+	if write {
+		q.Add("_pragma", "journal_mode(WAL)")
+		q.Set("_txlock", "immediate")
+	} else {
+		q.Add("_pragma", "query_only(1)")
 	}
-	return out
+	return path + "?" + q.Encode()
 }
