@@ -218,6 +218,9 @@ func NewSurface(s, temps []float64, values [][]float64) (*Surface, error) {
 // Temps returns a copy of the surface's temperatures in kelvin.
 func (sf *Surface) Temps() []float64 { return append([]float64(nil), sf.temps...) }
 
+// NumTemps returns the number of temperatures (curves) of the surface.
+func (sf *Surface) NumTemps() int { return len(sf.temps) }
+
 // Curve returns the curve at the j-th temperature.
 func (sf *Surface) Curve(j int) *Curve { return sf.curves[j] }
 
@@ -228,7 +231,7 @@ func (sf *Surface) bracket(tk float64) (j int, w float64) {
 		return 0, 0
 	}
 	if tk >= sf.temps[n-1] {
-		return n - 2, 1
+		return n - 1, 0 // one curve to evaluate, not two
 	}
 	j = sort.SearchFloat64s(sf.temps, tk) - 1
 	if j < 0 {
