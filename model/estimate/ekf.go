@@ -194,7 +194,8 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 	flags |= tempFlag(f.pack.Type, f.tmin, f.tmax, s.Current, s.Temperature)
 
 	// Measurement update (scalar).
-	yhat, h, r := f.measurement(s.Current, s.Temperature, flags&FlagRest != 0, s.Time-prevTime)
+	rest := flags&FlagRest != 0
+	yhat, h, r := f.measurement(&f.x, s.Current, s.Temperature, rest, s.Time-prevTime)
 	innov := s.Voltage - yhat
 	sv, ph := f.f.innovationVar(&h, r)
 	nis := innov * innov / sv
@@ -232,7 +233,11 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 		f.counters.Rejected++
 	}
 	if accept {
-		f.f.update(&f.x, &h, r, innov, sv, &ph)
+		if dz := ph[0] / sv * innov; math.Abs(dz) > iterateSOCStep {
+			f.iterate(s, rest, s.Time-prevTime, r)
+		} else {
+			f.f.update(&f.x, &h, r, innov, sv, &ph)
+		}
 		f.counters.Updates++
 	}
 	flags |= f.clamp()
@@ -374,25 +379,25 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 // one (+Inf for the first). With S cells in series,
 // y = S·(OCV(z) + h − ρR0(z)·ic − Σvₖ), so H = S·[dOCV/dz − ρ·dR0/dz·ic, −1 …, +1, 0,
 // −R0·ic].
-func (f *EKF) measurement(i, tk float64, rest bool, dt float64) (yhat float64, h vec, r float64) {
+func (f *EKF) measurement(x *vec, i, tk float64, rest bool, dt float64) (yhat float64, h vec, r float64) {
 	l := f.l
 	t := f.pack.Type
 	ns := float64(f.pack.Series)
 	par := float64(f.pack.Parallel)
 	ic := i / par
-	z := f.x[0]
+	z := x[0]
 	_, rf := packFactors(f.pack)
 	if l.ir >= 0 {
-		rf = f.x[l.ir]
+		rf = x[l.ir]
 	}
 	hv := 0.0
 	if l.ih >= 0 {
-		hv = f.x[l.ih]
+		hv = x[l.ih]
 	}
 	r0 := t.R0.At(z, tk)
 	v := (t.OCV.At(z, tk) + hv) - (r0*rf)*ic // CellVoltage: OCV + H − R0·ic
 	for k := range l.nb {
-		v -= f.x[1+k]
+		v -= x[1+k]
 	}
 	yhat = v * ns
 	h[0] = ns * (t.OCV.Deriv(z, tk) - rf*t.R0.SOCDeriv(z, tk)*ic)
@@ -415,6 +420,52 @@ func (f *EKF) measurement(i, tk float64, rest bool, dt float64) (yhat float64, h
 	dydi := ns * rf * r0 / par
 	r = f.cfg.voltVar + model + dydi*dydi*f.cfg.currentVar
 	return yhat, h, r
+}
+
+// iterateSOCStep is the SOC correction above which the measurement update is iterated:
+// one linearisation at the predicted state is accurate for small corrections only.
+const iterateSOCStep = 0.01
+
+// iterate applies the measurement of sample s by the iterated extended Kalman filter
+// (Bell and Cathey, IEEE Trans. Automatic Control 38(2):294–297, 1993 [from memory]): a
+// Gauss–Newton search for the maximum a posteriori state, relinearising the measurement
+// at each iterate xᵢ (held within the state bounds):
+//
+//	xᵢ₊₁ = x⁻ + Kᵢ·(y − h(xᵢ) − Hᵢ·(x⁻ − xᵢ)),  Kᵢ = P⁻Hᵢᵀ/(HᵢP⁻Hᵢᵀ + R)
+//
+// and the covariance updated (Joseph form) with the last gain and row. A large
+// correction, such as the first rested voltage after a wrong initial SOC on a curved
+// OCV, would otherwise overshoot.
+func (f *EKF) iterate(s Sample, rest bool, dt, r float64) {
+	x0 := f.x
+	xi := f.x
+	var h, ph vec
+	var e, sv float64
+	for range 6 {
+		var yhat float64
+		yhat, h, _ = f.measurement(&xi, s.Current, s.Temperature, rest, dt)
+		e = s.Voltage - yhat
+		for j := range f.l.n {
+			e -= h[j] * (x0[j] - xi[j])
+		}
+		sv, ph = f.f.innovationVar(&h, r)
+		next := x0
+		for j := range f.l.n {
+			next[j] += ph[j] / sv * e
+		}
+		next[0] = math.Min(socMax, math.Max(socMin, next[0]))
+		if f.l.ic >= 0 {
+			next[f.l.ic] = math.Min(capMax, math.Max(capMin, next[f.l.ic]))
+			next[f.l.ir] = math.Min(resMax, math.Max(resMin, next[f.l.ir]))
+		}
+		done := math.Abs(next[0]-xi[0]) < 1e-6
+		xi = next
+		if done {
+			break
+		}
+	}
+	f.x = x0
+	f.f.update(&f.x, &h, r, e, sv, &ph)
 }
 
 // inflate scales the covariance of the dynamic states (SOC, RC, hysteresis) so that an

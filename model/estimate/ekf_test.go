@@ -719,3 +719,22 @@ func TestEKFRecoversFromUnloggedCharge(t *testing.T) {
 		t.Errorf("error %.4f from 5 min after an unlogged charge; want ≤ 0.03", worst)
 	}
 }
+
+// TestEKFIteratedUpdate: a rested voltage far from the prior (the filter starts at
+// 0.5, the cell rests at 0.05 or 0.97, where the OCV curves) must be met in one update
+// without overshoot; a single linearisation at 0.5 would land far off.
+func TestEKFIteratedUpdate(t *testing.T) {
+	pack := testPack(t)
+	tk := cell.Kelvin(25)
+	for _, z := range []float64{0.05, 0.97} {
+		f, _ := NewEKF(pack, 0.5, &Settings{InitialSOCSigma: 0.3})
+		x := cell.State{SOC: z}
+		e, err := f.Update(Sample{Time: 0, Voltage: pack.Voltage(&x, 0, tk), Temperature: tk})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if math.Abs(e.SOC-z) > 0.005 {
+			t.Errorf("rested at %.2f: SOC after one update %.4f; want within 0.005", z, e.SOC)
+		}
+	}
+}

@@ -138,7 +138,7 @@ func TestMeasurementMatchesVoltage(t *testing.T) {
 		}
 		i := float64(pack.Parallel) * (6*rng.Float64() - 2)
 		tk := cell.Kelvin(-10 + 50*rng.Float64())
-		y, h, _ := f.measurement(i, tk, false, 1)
+		y, h, _ := f.measurement(&f.x, i, tk, false, 1)
 		pk, cs := f.model()
 		if want := pk.Voltage(&cs, i, tk); y != want {
 			t.Fatalf("trial %d: modelled voltage %.17g; Pack.Voltage %.17g", trial, y, want)
@@ -148,10 +148,10 @@ func TestMeasurementMatchesVoltage(t *testing.T) {
 			const hs = 1e-7
 			f.x = x0
 			f.x[j] += hs
-			yp, _, _ := f.measurement(i, tk, false, 1)
+			yp, _, _ := f.measurement(&f.x, i, tk, false, 1)
 			f.x = x0
 			f.x[j] -= hs
-			ym, _, _ := f.measurement(i, tk, false, 1)
+			ym, _, _ := f.measurement(&f.x, i, tk, false, 1)
 			fd := (yp - ym) / (2 * hs)
 			if math.Abs(fd-h[j]) > 1e-5*(1+math.Abs(fd)) {
 				t.Errorf("trial %d: ∂y/∂x%d = %.9g; central difference %.9g", trial, j, h[j], fd)
