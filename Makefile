@@ -45,6 +45,7 @@ $(BUF): tools/package.json tools/package-lock.json
 # (buf.gen.yaml). Works offline once `make tools` and `go mod download` have run.
 generate: $(BUF)
 	$(BUF) generate
+	$(GO) run ./gateway/internal/openapifix gateway/openapi/voltcast.swagger.json
 
 # Fails when the committed generated files differ from what `make generate` writes.
 GENERATED := proto gateway/openapi

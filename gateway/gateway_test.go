@@ -192,8 +192,8 @@ func TestOpenAPI(t *testing.T) {
 // generator writes with expand_slashed_path_patterns (buf.gen.yaml).
 func expand(p string) string {
 	r := strings.NewReplacer(
-		"{name=batteries/*}", "batteries/{batterie}", "{battery=batteries/*}", "batteries/{batterie}",
-		"{battery.name=batteries/*}", "batteries/{batterie}", "{name=batteryTypes/*}", "batteryTypes/{batteryType}",
+		"{name=batteries/*}", "batteries/{battery}", "{battery=batteries/*}", "batteries/{battery}",
+		"{battery.name=batteries/*}", "batteries/{battery}", "{name=batteryTypes/*}", "batteryTypes/{batteryType}",
 		"{name=calibrations/*}", "calibrations/{calibration}")
 	return r.Replace(p)
 }

@@ -268,10 +268,14 @@ type CalibrationReport struct {
 	MaxVoltageErrorVolts float64 `protobuf:"fixed64,2,opt,name=max_voltage_error_volts,json=maxVoltageErrorVolts,proto3" json:"max_voltage_error_volts,omitempty"`
 	// Number of samples used by the fit.
 	SampleCount int32 `protobuf:"varint,3,opt,name=sample_count,json=sampleCount,proto3" json:"sample_count,omitempty"`
-	// Number of solver iterations.
+	// Number of least-squares iterations of the refinement over dynamic tests; 0 when
+	// there was no refinement (the per-level pulse fits do not report theirs).
 	IterationCount int32 `protobuf:"varint,4,opt,name=iteration_count,json=iterationCount,proto3" json:"iteration_count,omitempty"`
 	// Notes on the fit (poorly determined parameters, ranges not covered), in English.
-	Notes         []string `protobuf:"bytes,5,rep,name=notes,proto3" json:"notes,omitempty"`
+	Notes []string `protobuf:"bytes,5,rep,name=notes,proto3" json:"notes,omitempty"`
+	// The voltage error of the fitted type on each test, in request order (data first,
+	// then tests).
+	Tests         []*CalibrationTestReport `protobuf:"bytes,6,rep,name=tests,proto3" json:"tests,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -341,10 +345,112 @@ func (x *CalibrationReport) GetNotes() []string {
 	return nil
 }
 
+func (x *CalibrationReport) GetTests() []*CalibrationTestReport {
+	if x != nil {
+		return x.Tests
+	}
+	return nil
+}
+
+// CalibrationTestReport is the voltage error of the fitted type on one submitted test.
+type CalibrationTestReport struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Which test: "data" or "tests[i]", as in the request.
+	Test string `protobuf:"bytes,1,opt,name=test,proto3" json:"test,omitempty"`
+	// The kind of the test.
+	Kind CalibrationTestKind `protobuf:"varint,2,opt,name=kind,proto3,enum=voltcast.v1.CalibrationTestKind" json:"kind,omitempty"`
+	// Number of samples compared.
+	SampleCount int32 `protobuf:"varint,3,opt,name=sample_count,json=sampleCount,proto3" json:"sample_count,omitempty"`
+	// Root-mean-square difference between modelled and measured cell voltage, in volts.
+	VoltageRmseVolts float64 `protobuf:"fixed64,4,opt,name=voltage_rmse_volts,json=voltageRmseVolts,proto3" json:"voltage_rmse_volts,omitempty"`
+	// Largest absolute difference between modelled and measured cell voltage, in volts.
+	MaxVoltageErrorVolts float64 `protobuf:"fixed64,5,opt,name=max_voltage_error_volts,json=maxVoltageErrorVolts,proto3" json:"max_voltage_error_volts,omitempty"`
+	// How the test was simulated for the comparison, in English.
+	Method        string `protobuf:"bytes,6,opt,name=method,proto3" json:"method,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CalibrationTestReport) Reset() {
+	*x = CalibrationTestReport{}
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[2]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CalibrationTestReport) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CalibrationTestReport) ProtoMessage() {}
+
+func (x *CalibrationTestReport) ProtoReflect() protoreflect.Message {
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[2]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CalibrationTestReport.ProtoReflect.Descriptor instead.
+func (*CalibrationTestReport) Descriptor() ([]byte, []int) {
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{2}
+}
+
+func (x *CalibrationTestReport) GetTest() string {
+	if x != nil {
+		return x.Test
+	}
+	return ""
+}
+
+func (x *CalibrationTestReport) GetKind() CalibrationTestKind {
+	if x != nil {
+		return x.Kind
+	}
+	return CalibrationTestKind_CALIBRATION_TEST_KIND_UNSPECIFIED
+}
+
+func (x *CalibrationTestReport) GetSampleCount() int32 {
+	if x != nil {
+		return x.SampleCount
+	}
+	return 0
+}
+
+func (x *CalibrationTestReport) GetVoltageRmseVolts() float64 {
+	if x != nil {
+		return x.VoltageRmseVolts
+	}
+	return 0
+}
+
+func (x *CalibrationTestReport) GetMaxVoltageErrorVolts() float64 {
+	if x != nil {
+		return x.MaxVoltageErrorVolts
+	}
+	return 0
+}
+
+func (x *CalibrationTestReport) GetMethod() string {
+	if x != nil {
+		return x.Method
+	}
+	return ""
+}
+
 // CalibrationError says why a calibration failed.
 type CalibrationError struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// Machine-readable reason, UPPER_SNAKE_CASE, for example "NOT_CONVERGED".
+	// Machine-readable reason, UPPER_SNAKE_CASE. Open to new values. Current ones:
+	// "UNUSABLE_DATA" (the tests lack what the fit needs: no pulses found, a discharge
+	// that is not low-rate, currents implausible for the cell), "FIT_FAILED" (the
+	// fitted parameters are not a valid type), "INTERRUPTED" (the server stopped),
+	// "WORKER_LOST" (the fit stopped reporting progress: its server died), "INTERNAL".
 	Reason string `protobuf:"bytes,1,opt,name=reason,proto3" json:"reason,omitempty"`
 	// Human-readable detail, in English.
 	Message       string `protobuf:"bytes,2,opt,name=message,proto3" json:"message,omitempty"`
@@ -354,7 +460,7 @@ type CalibrationError struct {
 
 func (x *CalibrationError) Reset() {
 	*x = CalibrationError{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[2]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[3]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -366,7 +472,7 @@ func (x *CalibrationError) String() string {
 func (*CalibrationError) ProtoMessage() {}
 
 func (x *CalibrationError) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[2]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[3]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -379,7 +485,7 @@ func (x *CalibrationError) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrationError.ProtoReflect.Descriptor instead.
 func (*CalibrationError) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{2}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{3}
 }
 
 func (x *CalibrationError) GetReason() string {
@@ -398,14 +504,14 @@ func (x *CalibrationError) GetMessage() string {
 
 // CalibrationData is a recorded test of one cell, as parallel packed arrays: sample k
 // is (time_offsets_seconds[k], current_amps[k], voltage_volts[k],
-// temperature_celsius[k]). At most 200000 samples (the server's configured limit may
-// be lower).
+// temperature_celsius[k], discharged_amp_hours[k]). A request holds at most 200000
+// samples over all its tests (the server's configured limit may be lower).
 type CalibrationData struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The kind of test. Required.
 	Kind CalibrationTestKind `protobuf:"varint,1,opt,name=kind,proto3,enum=voltcast.v1.CalibrationTestKind" json:"kind,omitempty"`
-	// Sample times in seconds from the start of the test, non-decreasing, finite.
-	// Required.
+	// Sample times in seconds from the start of the test, strictly increasing, finite,
+	// 0 to 1e9. Required; at least 10 samples.
 	TimeOffsetsSeconds []float64 `protobuf:"fixed64,2,rep,packed,name=time_offsets_seconds,json=timeOffsetsSeconds,proto3" json:"time_offsets_seconds,omitempty"`
 	// Cell current, in amperes; positive = discharge, negative = charge. One per sample.
 	CurrentAmps []float64 `protobuf:"fixed64,3,rep,packed,name=current_amps,json=currentAmps,proto3" json:"current_amps,omitempty"`
@@ -414,13 +520,18 @@ type CalibrationData struct {
 	// Cell temperature, in degrees Celsius, -60 to 100. One per sample, a single value
 	// for the whole test, or none for 25.
 	TemperatureCelsius []float64 `protobuf:"fixed64,5,rep,packed,name=temperature_celsius,json=temperatureCelsius,proto3" json:"temperature_celsius,omitempty"`
+	// The tester's own charge counter: charge removed since the start of the test, in
+	// ampere-hours (discharge counts up). One per sample, or none to integrate the
+	// current. Pulse tests whose logger skipped the moves between state-of-charge levels
+	// need it.
+	DischargedAmpHours []float64 `protobuf:"fixed64,6,rep,packed,name=discharged_amp_hours,json=dischargedAmpHours,proto3" json:"discharged_amp_hours,omitempty"`
 	unknownFields      protoimpl.UnknownFields
 	sizeCache          protoimpl.SizeCache
 }
 
 func (x *CalibrationData) Reset() {
 	*x = CalibrationData{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[3]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[4]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -432,7 +543,7 @@ func (x *CalibrationData) String() string {
 func (*CalibrationData) ProtoMessage() {}
 
 func (x *CalibrationData) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[3]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[4]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -445,7 +556,7 @@ func (x *CalibrationData) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrationData.ProtoReflect.Descriptor instead.
 func (*CalibrationData) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{3}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{4}
 }
 
 func (x *CalibrationData) GetKind() CalibrationTestKind {
@@ -483,31 +594,44 @@ func (x *CalibrationData) GetTemperatureCelsius() []float64 {
 	return nil
 }
 
+func (x *CalibrationData) GetDischargedAmpHours() []float64 {
+	if x != nil {
+		return x.DischargedAmpHours
+	}
+	return nil
+}
+
 // CalibrationSettings are what the fit starts from. Zero fields take the documented
 // defaults.
 type CalibrationSettings struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Chemistry of the cell. Required.
 	Chemistry Chemistry `protobuf:"varint,1,opt,name=chemistry,proto3,enum=voltcast.v1.Chemistry" json:"chemistry,omitempty"`
-	// Rated capacity of the cell, in ampere-hours. Required, positive.
+	// Rated capacity of the cell, in ampere-hours. Required, positive. The fitted
+	// capacity comes from the low-rate discharge; this value guards against currents in
+	// the wrong unit (any current above 50 C is refused) and a note compares the two.
 	CapacityAmpHours float64 `protobuf:"fixed64,2,opt,name=capacity_amp_hours,json=capacityAmpHours,proto3" json:"capacity_amp_hours,omitempty"`
-	// State of charge at the start of the test, a fraction in [0, 1]. Required for pulse
-	// and dynamic tests; a low-rate discharge starts full (1) when unset.
+	// State of charge at the start of the dynamic tests, a fraction in [0, 1]. Optional:
+	// unset means full (1). Low-rate and pulse tests must start full, as the usual test
+	// protocols do.
 	InitialStateOfCharge *float64 `protobuf:"fixed64,3,opt,name=initial_state_of_charge,json=initialStateOfCharge,proto3,oneof" json:"initial_state_of_charge,omitempty"`
-	// Number of RC branches to fit, 0 to 3. Optional: 0 means 1 for pulse and dynamic
-	// tests.
+	// Number of RC branches to fit, 1 or 2. Optional: 0 means 2.
 	RcBranchCount int32 `protobuf:"varint,4,opt,name=rc_branch_count,json=rcBranchCount,proto3" json:"rc_branch_count,omitempty"`
 	// Built-in or registered type whose values (limits, open-circuit voltage for dynamic
 	// tests) fill what the test cannot identify, "batteryTypes/{battery_type}". Optional:
 	// unset means the built-in generic type of the chemistry.
 	BaseBatteryType string `protobuf:"bytes,5,opt,name=base_battery_type,json=baseBatteryType,proto3" json:"base_battery_type,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// Refine the resistances and capacitances by least squares over the whole voltage
+	// traces of the DYNAMIC tests (one scale factor per table). Optional: off by
+	// default; without it dynamic tests are only reported against.
+	RefineWithDynamicTests bool `protobuf:"varint,6,opt,name=refine_with_dynamic_tests,json=refineWithDynamicTests,proto3" json:"refine_with_dynamic_tests,omitempty"`
+	unknownFields          protoimpl.UnknownFields
+	sizeCache              protoimpl.SizeCache
 }
 
 func (x *CalibrationSettings) Reset() {
 	*x = CalibrationSettings{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[4]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -519,7 +643,7 @@ func (x *CalibrationSettings) String() string {
 func (*CalibrationSettings) ProtoMessage() {}
 
 func (x *CalibrationSettings) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[4]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -532,7 +656,7 @@ func (x *CalibrationSettings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrationSettings.ProtoReflect.Descriptor instead.
 func (*CalibrationSettings) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{4}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *CalibrationSettings) GetChemistry() Chemistry {
@@ -570,6 +694,13 @@ func (x *CalibrationSettings) GetBaseBatteryType() string {
 	return ""
 }
 
+func (x *CalibrationSettings) GetRefineWithDynamicTests() bool {
+	if x != nil {
+		return x.RefineWithDynamicTests
+	}
+	return false
+}
+
 // CreateCalibrationRequest is the request of CreateCalibration.
 type CreateCalibrationRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -580,15 +711,24 @@ type CreateCalibrationRequest struct {
 	DisplayName string `protobuf:"bytes,2,opt,name=display_name,json=displayName,proto3" json:"display_name,omitempty"`
 	// What the fit starts from. Required.
 	Settings *CalibrationSettings `protobuf:"bytes,3,opt,name=settings,proto3" json:"settings,omitempty"`
-	// The test data. Required.
-	Data          *CalibrationData `protobuf:"bytes,4,opt,name=data,proto3" json:"data,omitempty"`
+	// One test. data and tests together must hold exactly one LOW_RATE_DISCHARGE test
+	// (open-circuit voltage and capacity), at least one PULSE test (series resistance
+	// and RC branches) and any number of DYNAMIC tests. Optional when tests holds them
+	// all; kept so that a client can send one test the way the first version did.
+	Data *CalibrationData `protobuf:"bytes,4,opt,name=data,proto3" json:"data,omitempty"`
+	// The tests, in addition to data. See data for what they must hold.
+	Tests []*CalibrationData `protobuf:"bytes,5,rep,name=tests,proto3" json:"tests,omitempty"`
+	// Idempotency key (AIP-155): a retried request with the same id returns the
+	// calibration the first created instead of starting another. Optional; at most 64
+	// characters.
+	RequestId     string `protobuf:"bytes,6,opt,name=request_id,json=requestId,proto3" json:"request_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
 
 func (x *CreateCalibrationRequest) Reset() {
 	*x = CreateCalibrationRequest{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[5]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[6]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -600,7 +740,7 @@ func (x *CreateCalibrationRequest) String() string {
 func (*CreateCalibrationRequest) ProtoMessage() {}
 
 func (x *CreateCalibrationRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[5]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[6]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -613,7 +753,7 @@ func (x *CreateCalibrationRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CreateCalibrationRequest.ProtoReflect.Descriptor instead.
 func (*CreateCalibrationRequest) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{5}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{6}
 }
 
 func (x *CreateCalibrationRequest) GetCalibrationId() string {
@@ -644,6 +784,20 @@ func (x *CreateCalibrationRequest) GetData() *CalibrationData {
 	return nil
 }
 
+func (x *CreateCalibrationRequest) GetTests() []*CalibrationData {
+	if x != nil {
+		return x.Tests
+	}
+	return nil
+}
+
+func (x *CreateCalibrationRequest) GetRequestId() string {
+	if x != nil {
+		return x.RequestId
+	}
+	return ""
+}
+
 // CreateCalibrationResponse is the response of CreateCalibration. Over REST the body is
 // the calibration itself.
 type CreateCalibrationResponse struct {
@@ -656,7 +810,7 @@ type CreateCalibrationResponse struct {
 
 func (x *CreateCalibrationResponse) Reset() {
 	*x = CreateCalibrationResponse{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[6]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -668,7 +822,7 @@ func (x *CreateCalibrationResponse) String() string {
 func (*CreateCalibrationResponse) ProtoMessage() {}
 
 func (x *CreateCalibrationResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[6]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -681,7 +835,7 @@ func (x *CreateCalibrationResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CreateCalibrationResponse.ProtoReflect.Descriptor instead.
 func (*CreateCalibrationResponse) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{6}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *CreateCalibrationResponse) GetCalibration() *Calibration {
@@ -702,7 +856,7 @@ type GetCalibrationRequest struct {
 
 func (x *GetCalibrationRequest) Reset() {
 	*x = GetCalibrationRequest{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[7]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -714,7 +868,7 @@ func (x *GetCalibrationRequest) String() string {
 func (*GetCalibrationRequest) ProtoMessage() {}
 
 func (x *GetCalibrationRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[7]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -727,7 +881,7 @@ func (x *GetCalibrationRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GetCalibrationRequest.ProtoReflect.Descriptor instead.
 func (*GetCalibrationRequest) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{7}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *GetCalibrationRequest) GetName() string {
@@ -749,7 +903,7 @@ type GetCalibrationResponse struct {
 
 func (x *GetCalibrationResponse) Reset() {
 	*x = GetCalibrationResponse{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[8]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -761,7 +915,7 @@ func (x *GetCalibrationResponse) String() string {
 func (*GetCalibrationResponse) ProtoMessage() {}
 
 func (x *GetCalibrationResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[8]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -774,7 +928,7 @@ func (x *GetCalibrationResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GetCalibrationResponse.ProtoReflect.Descriptor instead.
 func (*GetCalibrationResponse) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{8}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{9}
 }
 
 func (x *GetCalibrationResponse) GetCalibration() *Calibration {
@@ -798,7 +952,7 @@ type ListCalibrationsRequest struct {
 
 func (x *ListCalibrationsRequest) Reset() {
 	*x = ListCalibrationsRequest{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[9]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[10]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -810,7 +964,7 @@ func (x *ListCalibrationsRequest) String() string {
 func (*ListCalibrationsRequest) ProtoMessage() {}
 
 func (x *ListCalibrationsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[9]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[10]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -823,7 +977,7 @@ func (x *ListCalibrationsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListCalibrationsRequest.ProtoReflect.Descriptor instead.
 func (*ListCalibrationsRequest) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{9}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{10}
 }
 
 func (x *ListCalibrationsRequest) GetPageSize() int32 {
@@ -853,7 +1007,7 @@ type ListCalibrationsResponse struct {
 
 func (x *ListCalibrationsResponse) Reset() {
 	*x = ListCalibrationsResponse{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[10]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[11]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -865,7 +1019,7 @@ func (x *ListCalibrationsResponse) String() string {
 func (*ListCalibrationsResponse) ProtoMessage() {}
 
 func (x *ListCalibrationsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[10]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[11]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -878,7 +1032,7 @@ func (x *ListCalibrationsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListCalibrationsResponse.ProtoReflect.Descriptor instead.
 func (*ListCalibrationsResponse) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{10}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{11}
 }
 
 func (x *ListCalibrationsResponse) GetCalibrations() []*Calibration {
@@ -906,7 +1060,7 @@ type DeleteCalibrationRequest struct {
 
 func (x *DeleteCalibrationRequest) Reset() {
 	*x = DeleteCalibrationRequest{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[11]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[12]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -918,7 +1072,7 @@ func (x *DeleteCalibrationRequest) String() string {
 func (*DeleteCalibrationRequest) ProtoMessage() {}
 
 func (x *DeleteCalibrationRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[11]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[12]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -931,7 +1085,7 @@ func (x *DeleteCalibrationRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DeleteCalibrationRequest.ProtoReflect.Descriptor instead.
 func (*DeleteCalibrationRequest) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{11}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{12}
 }
 
 func (x *DeleteCalibrationRequest) GetName() string {
@@ -950,7 +1104,7 @@ type DeleteCalibrationResponse struct {
 
 func (x *DeleteCalibrationResponse) Reset() {
 	*x = DeleteCalibrationResponse{}
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[12]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[13]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -962,7 +1116,7 @@ func (x *DeleteCalibrationResponse) String() string {
 func (*DeleteCalibrationResponse) ProtoMessage() {}
 
 func (x *DeleteCalibrationResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_voltcast_v1_calibration_proto_msgTypes[12]
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[13]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -975,7 +1129,100 @@ func (x *DeleteCalibrationResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DeleteCalibrationResponse.ProtoReflect.Descriptor instead.
 func (*DeleteCalibrationResponse) Descriptor() ([]byte, []int) {
-	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{12}
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{13}
+}
+
+// CancelCalibrationRequest is the request of CancelCalibration.
+type CancelCalibrationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Resource name, "calibrations/{calibration}". Required.
+	Name          string `protobuf:"bytes,1,opt,name=name,proto3" json:"name,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CancelCalibrationRequest) Reset() {
+	*x = CancelCalibrationRequest{}
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[14]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CancelCalibrationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CancelCalibrationRequest) ProtoMessage() {}
+
+func (x *CancelCalibrationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[14]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CancelCalibrationRequest.ProtoReflect.Descriptor instead.
+func (*CancelCalibrationRequest) Descriptor() ([]byte, []int) {
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{14}
+}
+
+func (x *CancelCalibrationRequest) GetName() string {
+	if x != nil {
+		return x.Name
+	}
+	return ""
+}
+
+// CancelCalibrationResponse is the response of CancelCalibration. Over REST the body
+// is the calibration itself.
+type CancelCalibrationResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The calibration after the cancellation.
+	Calibration   *Calibration `protobuf:"bytes,1,opt,name=calibration,proto3" json:"calibration,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CancelCalibrationResponse) Reset() {
+	*x = CancelCalibrationResponse{}
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[15]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CancelCalibrationResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CancelCalibrationResponse) ProtoMessage() {}
+
+func (x *CancelCalibrationResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_voltcast_v1_calibration_proto_msgTypes[15]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CancelCalibrationResponse.ProtoReflect.Descriptor instead.
+func (*CancelCalibrationResponse) Descriptor() ([]byte, []int) {
+	return file_voltcast_v1_calibration_proto_rawDescGZIP(), []int{15}
+}
+
+func (x *CancelCalibrationResponse) GetCalibration() *Calibration {
+	if x != nil {
+		return x.Calibration
+	}
+	return nil
 }
 
 var File_voltcast_v1_calibration_proto protoreflect.FileDescriptor
@@ -992,34 +1239,47 @@ const file_voltcast_v1_calibration_proto_rawDesc = "" +
 	"\x05error\x18\x06 \x01(\v2\x1d.voltcast.v1.CalibrationErrorR\x05error\x12;\n" +
 	"\vcreate_time\x18\a \x01(\v2\x1a.google.protobuf.TimestampR\n" +
 	"createTime\x125\n" +
-	"\bend_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\aendTime\"\xda\x01\n" +
+	"\bend_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\aendTime\"\x94\x02\n" +
 	"\x11CalibrationReport\x12,\n" +
 	"\x12voltage_rmse_volts\x18\x01 \x01(\x01R\x10voltageRmseVolts\x125\n" +
 	"\x17max_voltage_error_volts\x18\x02 \x01(\x01R\x14maxVoltageErrorVolts\x12!\n" +
 	"\fsample_count\x18\x03 \x01(\x05R\vsampleCount\x12'\n" +
 	"\x0fiteration_count\x18\x04 \x01(\x05R\x0eiterationCount\x12\x14\n" +
-	"\x05notes\x18\x05 \x03(\tR\x05notes\"D\n" +
+	"\x05notes\x18\x05 \x03(\tR\x05notes\x128\n" +
+	"\x05tests\x18\x06 \x03(\v2\".voltcast.v1.CalibrationTestReportR\x05tests\"\x81\x02\n" +
+	"\x15CalibrationTestReport\x12\x12\n" +
+	"\x04test\x18\x01 \x01(\tR\x04test\x124\n" +
+	"\x04kind\x18\x02 \x01(\x0e2 .voltcast.v1.CalibrationTestKindR\x04kind\x12!\n" +
+	"\fsample_count\x18\x03 \x01(\x05R\vsampleCount\x12,\n" +
+	"\x12voltage_rmse_volts\x18\x04 \x01(\x01R\x10voltageRmseVolts\x125\n" +
+	"\x17max_voltage_error_volts\x18\x05 \x01(\x01R\x14maxVoltageErrorVolts\x12\x16\n" +
+	"\x06method\x18\x06 \x01(\tR\x06method\"D\n" +
 	"\x10CalibrationError\x12\x16\n" +
 	"\x06reason\x18\x01 \x01(\tR\x06reason\x12\x18\n" +
-	"\amessage\x18\x02 \x01(\tR\amessage\"\xf2\x01\n" +
+	"\amessage\x18\x02 \x01(\tR\amessage\"\xa4\x02\n" +
 	"\x0fCalibrationData\x124\n" +
 	"\x04kind\x18\x01 \x01(\x0e2 .voltcast.v1.CalibrationTestKindR\x04kind\x120\n" +
 	"\x14time_offsets_seconds\x18\x02 \x03(\x01R\x12timeOffsetsSeconds\x12!\n" +
 	"\fcurrent_amps\x18\x03 \x03(\x01R\vcurrentAmps\x12#\n" +
 	"\rvoltage_volts\x18\x04 \x03(\x01R\fvoltageVolts\x12/\n" +
-	"\x13temperature_celsius\x18\x05 \x03(\x01R\x12temperatureCelsius\"\xa5\x02\n" +
+	"\x13temperature_celsius\x18\x05 \x03(\x01R\x12temperatureCelsius\x120\n" +
+	"\x14discharged_amp_hours\x18\x06 \x03(\x01R\x12dischargedAmpHours\"\xe0\x02\n" +
 	"\x13CalibrationSettings\x124\n" +
 	"\tchemistry\x18\x01 \x01(\x0e2\x16.voltcast.v1.ChemistryR\tchemistry\x12,\n" +
 	"\x12capacity_amp_hours\x18\x02 \x01(\x01R\x10capacityAmpHours\x12:\n" +
 	"\x17initial_state_of_charge\x18\x03 \x01(\x01H\x00R\x14initialStateOfCharge\x88\x01\x01\x12&\n" +
 	"\x0frc_branch_count\x18\x04 \x01(\x05R\rrcBranchCount\x12*\n" +
-	"\x11base_battery_type\x18\x05 \x01(\tR\x0fbaseBatteryTypeB\x1a\n" +
-	"\x18_initial_state_of_charge\"\xd4\x01\n" +
+	"\x11base_battery_type\x18\x05 \x01(\tR\x0fbaseBatteryType\x129\n" +
+	"\x19refine_with_dynamic_tests\x18\x06 \x01(\bR\x16refineWithDynamicTestsB\x1a\n" +
+	"\x18_initial_state_of_charge\"\xa7\x02\n" +
 	"\x18CreateCalibrationRequest\x12%\n" +
 	"\x0ecalibration_id\x18\x01 \x01(\tR\rcalibrationId\x12!\n" +
 	"\fdisplay_name\x18\x02 \x01(\tR\vdisplayName\x12<\n" +
 	"\bsettings\x18\x03 \x01(\v2 .voltcast.v1.CalibrationSettingsR\bsettings\x120\n" +
-	"\x04data\x18\x04 \x01(\v2\x1c.voltcast.v1.CalibrationDataR\x04data\"W\n" +
+	"\x04data\x18\x04 \x01(\v2\x1c.voltcast.v1.CalibrationDataR\x04data\x122\n" +
+	"\x05tests\x18\x05 \x03(\v2\x1c.voltcast.v1.CalibrationDataR\x05tests\x12\x1d\n" +
+	"\n" +
+	"request_id\x18\x06 \x01(\tR\trequestId\"W\n" +
 	"\x19CreateCalibrationResponse\x12:\n" +
 	"\vcalibration\x18\x01 \x01(\v2\x18.voltcast.v1.CalibrationR\vcalibration\"+\n" +
 	"\x15GetCalibrationRequest\x12\x12\n" +
@@ -1035,7 +1295,11 @@ const file_voltcast_v1_calibration_proto_rawDesc = "" +
 	"\x0fnext_page_token\x18\x02 \x01(\tR\rnextPageToken\".\n" +
 	"\x18DeleteCalibrationRequest\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\"\x1b\n" +
-	"\x19DeleteCalibrationResponse*\xd3\x01\n" +
+	"\x19DeleteCalibrationResponse\".\n" +
+	"\x18CancelCalibrationRequest\x12\x12\n" +
+	"\x04name\x18\x01 \x01(\tR\x04name\"W\n" +
+	"\x19CancelCalibrationResponse\x12:\n" +
+	"\vcalibration\x18\x01 \x01(\v2\x18.voltcast.v1.CalibrationR\vcalibration*\xd3\x01\n" +
 	"\x10CalibrationState\x12!\n" +
 	"\x1dCALIBRATION_STATE_UNSPECIFIED\x10\x00\x12\x1d\n" +
 	"\x19CALIBRATION_STATE_RUNNING\x10\x01\x12\x1f\n" +
@@ -1047,12 +1311,13 @@ const file_voltcast_v1_calibration_proto_rawDesc = "" +
 	"!CALIBRATION_TEST_KIND_UNSPECIFIED\x10\x00\x12\x1f\n" +
 	"\x1bCALIBRATION_TEST_KIND_PULSE\x10\x01\x12,\n" +
 	"(CALIBRATION_TEST_KIND_LOW_RATE_DISCHARGE\x10\x02\x12!\n" +
-	"\x1dCALIBRATION_TEST_KIND_DYNAMIC\x10\x032\xa2\x03\n" +
+	"\x1dCALIBRATION_TEST_KIND_DYNAMIC\x10\x032\x86\x04\n" +
 	"\x12CalibrationService\x12b\n" +
 	"\x11CreateCalibration\x12%.voltcast.v1.CreateCalibrationRequest\x1a&.voltcast.v1.CreateCalibrationResponse\x12^\n" +
 	"\x0eGetCalibration\x12\".voltcast.v1.GetCalibrationRequest\x1a#.voltcast.v1.GetCalibrationResponse\"\x03\x90\x02\x01\x12d\n" +
 	"\x10ListCalibrations\x12$.voltcast.v1.ListCalibrationsRequest\x1a%.voltcast.v1.ListCalibrationsResponse\"\x03\x90\x02\x01\x12b\n" +
-	"\x11DeleteCalibration\x12%.voltcast.v1.DeleteCalibrationRequest\x1a&.voltcast.v1.DeleteCalibrationResponseB;Z9github.com/voltcast/voltcast/proto/voltcast/v1;voltcastv1b\x06proto3"
+	"\x11DeleteCalibration\x12%.voltcast.v1.DeleteCalibrationRequest\x1a&.voltcast.v1.DeleteCalibrationResponse\x12b\n" +
+	"\x11CancelCalibration\x12%.voltcast.v1.CancelCalibrationRequest\x1a&.voltcast.v1.CancelCalibrationResponseB;Z9github.com/voltcast/voltcast/proto/voltcast/v1;voltcastv1b\x06proto3"
 
 var (
 	file_voltcast_v1_calibration_proto_rawDescOnce sync.Once
@@ -1067,54 +1332,63 @@ func file_voltcast_v1_calibration_proto_rawDescGZIP() []byte {
 }
 
 var file_voltcast_v1_calibration_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_voltcast_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 13)
+var file_voltcast_v1_calibration_proto_msgTypes = make([]protoimpl.MessageInfo, 16)
 var file_voltcast_v1_calibration_proto_goTypes = []any{
 	(CalibrationState)(0),             // 0: voltcast.v1.CalibrationState
 	(CalibrationTestKind)(0),          // 1: voltcast.v1.CalibrationTestKind
 	(*Calibration)(nil),               // 2: voltcast.v1.Calibration
 	(*CalibrationReport)(nil),         // 3: voltcast.v1.CalibrationReport
-	(*CalibrationError)(nil),          // 4: voltcast.v1.CalibrationError
-	(*CalibrationData)(nil),           // 5: voltcast.v1.CalibrationData
-	(*CalibrationSettings)(nil),       // 6: voltcast.v1.CalibrationSettings
-	(*CreateCalibrationRequest)(nil),  // 7: voltcast.v1.CreateCalibrationRequest
-	(*CreateCalibrationResponse)(nil), // 8: voltcast.v1.CreateCalibrationResponse
-	(*GetCalibrationRequest)(nil),     // 9: voltcast.v1.GetCalibrationRequest
-	(*GetCalibrationResponse)(nil),    // 10: voltcast.v1.GetCalibrationResponse
-	(*ListCalibrationsRequest)(nil),   // 11: voltcast.v1.ListCalibrationsRequest
-	(*ListCalibrationsResponse)(nil),  // 12: voltcast.v1.ListCalibrationsResponse
-	(*DeleteCalibrationRequest)(nil),  // 13: voltcast.v1.DeleteCalibrationRequest
-	(*DeleteCalibrationResponse)(nil), // 14: voltcast.v1.DeleteCalibrationResponse
-	(*BatteryType)(nil),               // 15: voltcast.v1.BatteryType
-	(*timestamppb.Timestamp)(nil),     // 16: google.protobuf.Timestamp
-	(Chemistry)(0),                    // 17: voltcast.v1.Chemistry
+	(*CalibrationTestReport)(nil),     // 4: voltcast.v1.CalibrationTestReport
+	(*CalibrationError)(nil),          // 5: voltcast.v1.CalibrationError
+	(*CalibrationData)(nil),           // 6: voltcast.v1.CalibrationData
+	(*CalibrationSettings)(nil),       // 7: voltcast.v1.CalibrationSettings
+	(*CreateCalibrationRequest)(nil),  // 8: voltcast.v1.CreateCalibrationRequest
+	(*CreateCalibrationResponse)(nil), // 9: voltcast.v1.CreateCalibrationResponse
+	(*GetCalibrationRequest)(nil),     // 10: voltcast.v1.GetCalibrationRequest
+	(*GetCalibrationResponse)(nil),    // 11: voltcast.v1.GetCalibrationResponse
+	(*ListCalibrationsRequest)(nil),   // 12: voltcast.v1.ListCalibrationsRequest
+	(*ListCalibrationsResponse)(nil),  // 13: voltcast.v1.ListCalibrationsResponse
+	(*DeleteCalibrationRequest)(nil),  // 14: voltcast.v1.DeleteCalibrationRequest
+	(*DeleteCalibrationResponse)(nil), // 15: voltcast.v1.DeleteCalibrationResponse
+	(*CancelCalibrationRequest)(nil),  // 16: voltcast.v1.CancelCalibrationRequest
+	(*CancelCalibrationResponse)(nil), // 17: voltcast.v1.CancelCalibrationResponse
+	(*BatteryType)(nil),               // 18: voltcast.v1.BatteryType
+	(*timestamppb.Timestamp)(nil),     // 19: google.protobuf.Timestamp
+	(Chemistry)(0),                    // 20: voltcast.v1.Chemistry
 }
 var file_voltcast_v1_calibration_proto_depIdxs = []int32{
 	0,  // 0: voltcast.v1.Calibration.state:type_name -> voltcast.v1.CalibrationState
-	15, // 1: voltcast.v1.Calibration.battery_type:type_name -> voltcast.v1.BatteryType
+	18, // 1: voltcast.v1.Calibration.battery_type:type_name -> voltcast.v1.BatteryType
 	3,  // 2: voltcast.v1.Calibration.report:type_name -> voltcast.v1.CalibrationReport
-	4,  // 3: voltcast.v1.Calibration.error:type_name -> voltcast.v1.CalibrationError
-	16, // 4: voltcast.v1.Calibration.create_time:type_name -> google.protobuf.Timestamp
-	16, // 5: voltcast.v1.Calibration.end_time:type_name -> google.protobuf.Timestamp
-	1,  // 6: voltcast.v1.CalibrationData.kind:type_name -> voltcast.v1.CalibrationTestKind
-	17, // 7: voltcast.v1.CalibrationSettings.chemistry:type_name -> voltcast.v1.Chemistry
-	6,  // 8: voltcast.v1.CreateCalibrationRequest.settings:type_name -> voltcast.v1.CalibrationSettings
-	5,  // 9: voltcast.v1.CreateCalibrationRequest.data:type_name -> voltcast.v1.CalibrationData
-	2,  // 10: voltcast.v1.CreateCalibrationResponse.calibration:type_name -> voltcast.v1.Calibration
-	2,  // 11: voltcast.v1.GetCalibrationResponse.calibration:type_name -> voltcast.v1.Calibration
-	2,  // 12: voltcast.v1.ListCalibrationsResponse.calibrations:type_name -> voltcast.v1.Calibration
-	7,  // 13: voltcast.v1.CalibrationService.CreateCalibration:input_type -> voltcast.v1.CreateCalibrationRequest
-	9,  // 14: voltcast.v1.CalibrationService.GetCalibration:input_type -> voltcast.v1.GetCalibrationRequest
-	11, // 15: voltcast.v1.CalibrationService.ListCalibrations:input_type -> voltcast.v1.ListCalibrationsRequest
-	13, // 16: voltcast.v1.CalibrationService.DeleteCalibration:input_type -> voltcast.v1.DeleteCalibrationRequest
-	8,  // 17: voltcast.v1.CalibrationService.CreateCalibration:output_type -> voltcast.v1.CreateCalibrationResponse
-	10, // 18: voltcast.v1.CalibrationService.GetCalibration:output_type -> voltcast.v1.GetCalibrationResponse
-	12, // 19: voltcast.v1.CalibrationService.ListCalibrations:output_type -> voltcast.v1.ListCalibrationsResponse
-	14, // 20: voltcast.v1.CalibrationService.DeleteCalibration:output_type -> voltcast.v1.DeleteCalibrationResponse
-	17, // [17:21] is the sub-list for method output_type
-	13, // [13:17] is the sub-list for method input_type
-	13, // [13:13] is the sub-list for extension type_name
-	13, // [13:13] is the sub-list for extension extendee
-	0,  // [0:13] is the sub-list for field type_name
+	5,  // 3: voltcast.v1.Calibration.error:type_name -> voltcast.v1.CalibrationError
+	19, // 4: voltcast.v1.Calibration.create_time:type_name -> google.protobuf.Timestamp
+	19, // 5: voltcast.v1.Calibration.end_time:type_name -> google.protobuf.Timestamp
+	4,  // 6: voltcast.v1.CalibrationReport.tests:type_name -> voltcast.v1.CalibrationTestReport
+	1,  // 7: voltcast.v1.CalibrationTestReport.kind:type_name -> voltcast.v1.CalibrationTestKind
+	1,  // 8: voltcast.v1.CalibrationData.kind:type_name -> voltcast.v1.CalibrationTestKind
+	20, // 9: voltcast.v1.CalibrationSettings.chemistry:type_name -> voltcast.v1.Chemistry
+	7,  // 10: voltcast.v1.CreateCalibrationRequest.settings:type_name -> voltcast.v1.CalibrationSettings
+	6,  // 11: voltcast.v1.CreateCalibrationRequest.data:type_name -> voltcast.v1.CalibrationData
+	6,  // 12: voltcast.v1.CreateCalibrationRequest.tests:type_name -> voltcast.v1.CalibrationData
+	2,  // 13: voltcast.v1.CreateCalibrationResponse.calibration:type_name -> voltcast.v1.Calibration
+	2,  // 14: voltcast.v1.GetCalibrationResponse.calibration:type_name -> voltcast.v1.Calibration
+	2,  // 15: voltcast.v1.ListCalibrationsResponse.calibrations:type_name -> voltcast.v1.Calibration
+	2,  // 16: voltcast.v1.CancelCalibrationResponse.calibration:type_name -> voltcast.v1.Calibration
+	8,  // 17: voltcast.v1.CalibrationService.CreateCalibration:input_type -> voltcast.v1.CreateCalibrationRequest
+	10, // 18: voltcast.v1.CalibrationService.GetCalibration:input_type -> voltcast.v1.GetCalibrationRequest
+	12, // 19: voltcast.v1.CalibrationService.ListCalibrations:input_type -> voltcast.v1.ListCalibrationsRequest
+	14, // 20: voltcast.v1.CalibrationService.DeleteCalibration:input_type -> voltcast.v1.DeleteCalibrationRequest
+	16, // 21: voltcast.v1.CalibrationService.CancelCalibration:input_type -> voltcast.v1.CancelCalibrationRequest
+	9,  // 22: voltcast.v1.CalibrationService.CreateCalibration:output_type -> voltcast.v1.CreateCalibrationResponse
+	11, // 23: voltcast.v1.CalibrationService.GetCalibration:output_type -> voltcast.v1.GetCalibrationResponse
+	13, // 24: voltcast.v1.CalibrationService.ListCalibrations:output_type -> voltcast.v1.ListCalibrationsResponse
+	15, // 25: voltcast.v1.CalibrationService.DeleteCalibration:output_type -> voltcast.v1.DeleteCalibrationResponse
+	17, // 26: voltcast.v1.CalibrationService.CancelCalibration:output_type -> voltcast.v1.CancelCalibrationResponse
+	22, // [22:27] is the sub-list for method output_type
+	17, // [17:22] is the sub-list for method input_type
+	17, // [17:17] is the sub-list for extension type_name
+	17, // [17:17] is the sub-list for extension extendee
+	0,  // [0:17] is the sub-list for field type_name
 }
 
 func init() { file_voltcast_v1_calibration_proto_init() }
@@ -1123,14 +1397,14 @@ func file_voltcast_v1_calibration_proto_init() {
 		return
 	}
 	file_voltcast_v1_battery_type_proto_init()
-	file_voltcast_v1_calibration_proto_msgTypes[4].OneofWrappers = []any{}
+	file_voltcast_v1_calibration_proto_msgTypes[5].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_voltcast_v1_calibration_proto_rawDesc), len(file_voltcast_v1_calibration_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   13,
+			NumMessages:   16,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -175,6 +175,51 @@ func local_request_CalibrationService_DeleteCalibration_0(ctx context.Context, m
 	return msg, metadata, err
 }
 
+func request_CalibrationService_CancelCalibration_0(ctx context.Context, marshaler runtime.Marshaler, client CalibrationServiceClient, req *http.Request, pathParams map[string]string) (proto.Message, runtime.ServerMetadata, error) {
+	var (
+		protoReq CancelCalibrationRequest
+		metadata runtime.ServerMetadata
+		err      error
+	)
+	if err := marshaler.NewDecoder(req.Body).Decode(&protoReq); err != nil && !errors.Is(err, io.EOF) {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "%v", err)
+	}
+	val, ok := pathParams["name"]
+	if !ok {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "missing parameter %s", "name")
+	}
+	protoReq.Name, err = runtime.String(val)
+	if err != nil {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "type mismatch, parameter: %s, error: %v", "name", err)
+	}
+	if req.Body != nil {
+		_, _ = io.Copy(io.Discard, req.Body)
+	}
+	msg, err := client.CancelCalibration(ctx, &protoReq, grpc.Header(&metadata.HeaderMD), grpc.Trailer(&metadata.TrailerMD))
+	return msg, metadata, err
+}
+
+func local_request_CalibrationService_CancelCalibration_0(ctx context.Context, marshaler runtime.Marshaler, server CalibrationServiceServer, req *http.Request, pathParams map[string]string) (proto.Message, runtime.ServerMetadata, error) {
+	var (
+		protoReq CancelCalibrationRequest
+		metadata runtime.ServerMetadata
+		err      error
+	)
+	if err := marshaler.NewDecoder(req.Body).Decode(&protoReq); err != nil && !errors.Is(err, io.EOF) {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "%v", err)
+	}
+	val, ok := pathParams["name"]
+	if !ok {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "missing parameter %s", "name")
+	}
+	protoReq.Name, err = runtime.String(val)
+	if err != nil {
+		return nil, metadata, status.Errorf(codes.InvalidArgument, "type mismatch, parameter: %s, error: %v", "name", err)
+	}
+	msg, err := server.CancelCalibration(ctx, &protoReq)
+	return msg, metadata, err
+}
+
 // RegisterCalibrationServiceHandlerServer registers the http handlers for service CalibrationService to "mux".
 // UnaryRPC     :call CalibrationServiceServer directly.
 // StreamingRPC :currently unsupported pending https://github.com/grpc/grpc-go/issues/906.
@@ -260,6 +305,26 @@ func RegisterCalibrationServiceHandlerServer(ctx context.Context, mux *runtime.S
 			return
 		}
 		forward_CalibrationService_DeleteCalibration_0(annotatedContext, mux, outboundMarshaler, w, req, resp, mux.GetForwardResponseOptions()...)
+	})
+	mux.Handle(http.MethodPost, pattern_CalibrationService_CancelCalibration_0, func(w http.ResponseWriter, req *http.Request, pathParams map[string]string) {
+		ctx, cancel := context.WithCancel(req.Context())
+		defer cancel()
+		var stream runtime.ServerTransportStream
+		ctx = grpc.NewContextWithServerTransportStream(ctx, &stream)
+		inboundMarshaler, outboundMarshaler := runtime.MarshalerForRequest(mux, req)
+		annotatedContext, err := runtime.AnnotateIncomingContext(ctx, mux, req, "/voltcast.v1.CalibrationService/CancelCalibration", runtime.WithHTTPPathPattern("/v1/{name=calibrations/*}:cancel"))
+		if err != nil {
+			runtime.HTTPError(ctx, mux, outboundMarshaler, w, req, err)
+			return
+		}
+		resp, md, err := local_request_CalibrationService_CancelCalibration_0(annotatedContext, inboundMarshaler, server, req, pathParams)
+		md.HeaderMD, md.TrailerMD = metadata.Join(md.HeaderMD, stream.Header()), metadata.Join(md.TrailerMD, stream.Trailer())
+		annotatedContext = runtime.NewServerMetadataContext(annotatedContext, md)
+		if err != nil {
+			runtime.HTTPError(annotatedContext, mux, outboundMarshaler, w, req, err)
+			return
+		}
+		forward_CalibrationService_CancelCalibration_0(annotatedContext, mux, outboundMarshaler, w, req, response_CalibrationService_CancelCalibration_0{resp.(*CancelCalibrationResponse)}, mux.GetForwardResponseOptions()...)
 	})
 
 	return nil
@@ -369,6 +434,23 @@ func RegisterCalibrationServiceHandlerClient(ctx context.Context, mux *runtime.S
 		}
 		forward_CalibrationService_DeleteCalibration_0(annotatedContext, mux, outboundMarshaler, w, req, resp, mux.GetForwardResponseOptions()...)
 	})
+	mux.Handle(http.MethodPost, pattern_CalibrationService_CancelCalibration_0, func(w http.ResponseWriter, req *http.Request, pathParams map[string]string) {
+		ctx, cancel := context.WithCancel(req.Context())
+		defer cancel()
+		inboundMarshaler, outboundMarshaler := runtime.MarshalerForRequest(mux, req)
+		annotatedContext, err := runtime.AnnotateContext(ctx, mux, req, "/voltcast.v1.CalibrationService/CancelCalibration", runtime.WithHTTPPathPattern("/v1/{name=calibrations/*}:cancel"))
+		if err != nil {
+			runtime.HTTPError(ctx, mux, outboundMarshaler, w, req, err)
+			return
+		}
+		resp, md, err := request_CalibrationService_CancelCalibration_0(annotatedContext, inboundMarshaler, client, req, pathParams)
+		annotatedContext = runtime.NewServerMetadataContext(annotatedContext, md)
+		if err != nil {
+			runtime.HTTPError(annotatedContext, mux, outboundMarshaler, w, req, err)
+			return
+		}
+		forward_CalibrationService_CancelCalibration_0(annotatedContext, mux, outboundMarshaler, w, req, response_CalibrationService_CancelCalibration_0{resp.(*CancelCalibrationResponse)}, mux.GetForwardResponseOptions()...)
+	})
 	return nil
 }
 
@@ -390,11 +472,21 @@ func (m response_CalibrationService_GetCalibration_0) XXX_ResponseBody() interfa
 	return response.Calibration
 }
 
+type response_CalibrationService_CancelCalibration_0 struct {
+	*CancelCalibrationResponse
+}
+
+func (m response_CalibrationService_CancelCalibration_0) XXX_ResponseBody() interface{} {
+	response := m.CancelCalibrationResponse
+	return response.Calibration
+}
+
 var (
 	pattern_CalibrationService_CreateCalibration_0 = runtime.MustPattern(runtime.NewPattern(1, []int{2, 0, 2, 1}, []string{"v1", "calibrations"}, ""))
 	pattern_CalibrationService_GetCalibration_0    = runtime.MustPattern(runtime.NewPattern(1, []int{2, 0, 2, 1, 1, 0, 4, 2, 5, 2}, []string{"v1", "calibrations", "name"}, ""))
 	pattern_CalibrationService_ListCalibrations_0  = runtime.MustPattern(runtime.NewPattern(1, []int{2, 0, 2, 1}, []string{"v1", "calibrations"}, ""))
 	pattern_CalibrationService_DeleteCalibration_0 = runtime.MustPattern(runtime.NewPattern(1, []int{2, 0, 2, 1, 1, 0, 4, 2, 5, 2}, []string{"v1", "calibrations", "name"}, ""))
+	pattern_CalibrationService_CancelCalibration_0 = runtime.MustPattern(runtime.NewPattern(1, []int{2, 0, 2, 1, 1, 0, 4, 2, 5, 2}, []string{"v1", "calibrations", "name"}, "cancel"))
 )
 
 var (
@@ -402,4 +494,5 @@ var (
 	forward_CalibrationService_GetCalibration_0    = runtime.ForwardResponseMessage
 	forward_CalibrationService_ListCalibrations_0  = runtime.ForwardResponseMessage
 	forward_CalibrationService_DeleteCalibration_0 = runtime.ForwardResponseMessage
+	forward_CalibrationService_CancelCalibration_0 = runtime.ForwardResponseMessage
 )

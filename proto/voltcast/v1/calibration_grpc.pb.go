@@ -23,6 +23,7 @@ const (
 	CalibrationService_GetCalibration_FullMethodName    = "/voltcast.v1.CalibrationService/GetCalibration"
 	CalibrationService_ListCalibrations_FullMethodName  = "/voltcast.v1.CalibrationService/ListCalibrations"
 	CalibrationService_DeleteCalibration_FullMethodName = "/voltcast.v1.CalibrationService/DeleteCalibration"
+	CalibrationService_CancelCalibration_FullMethodName = "/voltcast.v1.CalibrationService/CancelCalibration"
 )
 
 // CalibrationServiceClient is the client API for CalibrationService service.
@@ -35,6 +36,13 @@ const (
 // PENDING or RUNNING; poll GetCalibration until it is SUCCEEDED, FAILED or
 // CANCELLED. A succeeded calibration's fitted type can be registered with
 // BatteryTypeService.CreateBatteryType.
+//
+// Fits run in a bounded pool of background workers on the server that accepted them.
+// A fit does not survive the server: when the server stops (or dies), its unfinished
+// calibrations end FAILED with error reason "INTERRUPTED" (or "WORKER_LOST", found by
+// another replica or after a restart once the fit stopped reporting progress), and
+// must be submitted again. When every worker is busy and the queue is full,
+// CreateCalibration is RESOURCE_EXHAUSTED; retry later.
 //
 // Current is positive on discharge (leaving the cell) and negative on charge.
 type CalibrationServiceClient interface {
@@ -49,6 +57,10 @@ type CalibrationServiceClient interface {
 	ListCalibrations(ctx context.Context, in *ListCalibrationsRequest, opts ...grpc.CallOption) (*ListCalibrationsResponse, error)
 	// DeleteCalibration deletes a calibration, cancelling it if it is still running.
 	DeleteCalibration(ctx context.Context, in *DeleteCalibrationRequest, opts ...grpc.CallOption) (*DeleteCalibrationResponse, error)
+	// CancelCalibration stops a PENDING or RUNNING calibration; it ends CANCELLED. A
+	// calibration that has already ended is returned unchanged. The calibration is kept
+	// (delete it with DeleteCalibration).
+	CancelCalibration(ctx context.Context, in *CancelCalibrationRequest, opts ...grpc.CallOption) (*CancelCalibrationResponse, error)
 }
 
 type calibrationServiceClient struct {
@@ -99,6 +111,16 @@ func (c *calibrationServiceClient) DeleteCalibration(ctx context.Context, in *De
 	return out, nil
 }
 
+func (c *calibrationServiceClient) CancelCalibration(ctx context.Context, in *CancelCalibrationRequest, opts ...grpc.CallOption) (*CancelCalibrationResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(CancelCalibrationResponse)
+	err := c.cc.Invoke(ctx, CalibrationService_CancelCalibration_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // CalibrationServiceServer is the server API for CalibrationService service.
 // All implementations must embed UnimplementedCalibrationServiceServer
 // for forward compatibility.
@@ -109,6 +131,13 @@ func (c *calibrationServiceClient) DeleteCalibration(ctx context.Context, in *De
 // PENDING or RUNNING; poll GetCalibration until it is SUCCEEDED, FAILED or
 // CANCELLED. A succeeded calibration's fitted type can be registered with
 // BatteryTypeService.CreateBatteryType.
+//
+// Fits run in a bounded pool of background workers on the server that accepted them.
+// A fit does not survive the server: when the server stops (or dies), its unfinished
+// calibrations end FAILED with error reason "INTERRUPTED" (or "WORKER_LOST", found by
+// another replica or after a restart once the fit stopped reporting progress), and
+// must be submitted again. When every worker is busy and the queue is full,
+// CreateCalibration is RESOURCE_EXHAUSTED; retry later.
 //
 // Current is positive on discharge (leaving the cell) and negative on charge.
 type CalibrationServiceServer interface {
@@ -123,6 +152,10 @@ type CalibrationServiceServer interface {
 	ListCalibrations(context.Context, *ListCalibrationsRequest) (*ListCalibrationsResponse, error)
 	// DeleteCalibration deletes a calibration, cancelling it if it is still running.
 	DeleteCalibration(context.Context, *DeleteCalibrationRequest) (*DeleteCalibrationResponse, error)
+	// CancelCalibration stops a PENDING or RUNNING calibration; it ends CANCELLED. A
+	// calibration that has already ended is returned unchanged. The calibration is kept
+	// (delete it with DeleteCalibration).
+	CancelCalibration(context.Context, *CancelCalibrationRequest) (*CancelCalibrationResponse, error)
 	mustEmbedUnimplementedCalibrationServiceServer()
 }
 
@@ -144,6 +177,9 @@ func (UnimplementedCalibrationServiceServer) ListCalibrations(context.Context, *
 }
 func (UnimplementedCalibrationServiceServer) DeleteCalibration(context.Context, *DeleteCalibrationRequest) (*DeleteCalibrationResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method DeleteCalibration not implemented")
+}
+func (UnimplementedCalibrationServiceServer) CancelCalibration(context.Context, *CancelCalibrationRequest) (*CancelCalibrationResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method CancelCalibration not implemented")
 }
 func (UnimplementedCalibrationServiceServer) mustEmbedUnimplementedCalibrationServiceServer() {}
 func (UnimplementedCalibrationServiceServer) testEmbeddedByValue()                            {}
@@ -238,6 +274,24 @@ func _CalibrationService_DeleteCalibration_Handler(srv interface{}, ctx context.
 	return interceptor(ctx, in, info, handler)
 }
 
+func _CalibrationService_CancelCalibration_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(CancelCalibrationRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(CalibrationServiceServer).CancelCalibration(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: CalibrationService_CancelCalibration_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(CalibrationServiceServer).CancelCalibration(ctx, req.(*CancelCalibrationRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // CalibrationService_ServiceDesc is the grpc.ServiceDesc for CalibrationService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -260,6 +314,10 @@ var CalibrationService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "DeleteCalibration",
 			Handler:    _CalibrationService_DeleteCalibration_Handler,
+		},
+		{
+			MethodName: "CancelCalibration",
+			Handler:    _CalibrationService_CancelCalibration_Handler,
 		},
 	},
 	Streams:  []grpc.StreamDesc{},

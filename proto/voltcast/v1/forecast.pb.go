@@ -101,6 +101,10 @@ const (
 	ChargePhaseKind_CHARGE_PHASE_KIND_FLOAT ChargePhaseKind = 4
 	// Reduced-current pre-charge of a deeply discharged cell.
 	ChargePhaseKind_CHARGE_PHASE_KIND_PRECHARGE ChargePhaseKind = 5
+	// Constant power, when the charger's power limit binds before its current limit.
+	ChargePhaseKind_CHARGE_PHASE_KIND_CONSTANT_POWER ChargePhaseKind = 6
+	// Nickel: charge past full until the voltage drop (-dV) or the timer ends it.
+	ChargePhaseKind_CHARGE_PHASE_KIND_OVERCHARGE ChargePhaseKind = 7
 )
 
 // Enum value maps for ChargePhaseKind.
@@ -112,6 +116,8 @@ var (
 		3: "CHARGE_PHASE_KIND_ABSORPTION",
 		4: "CHARGE_PHASE_KIND_FLOAT",
 		5: "CHARGE_PHASE_KIND_PRECHARGE",
+		6: "CHARGE_PHASE_KIND_CONSTANT_POWER",
+		7: "CHARGE_PHASE_KIND_OVERCHARGE",
 	}
 	ChargePhaseKind_value = map[string]int32{
 		"CHARGE_PHASE_KIND_UNSPECIFIED":      0,
@@ -120,6 +126,8 @@ var (
 		"CHARGE_PHASE_KIND_ABSORPTION":       3,
 		"CHARGE_PHASE_KIND_FLOAT":            4,
 		"CHARGE_PHASE_KIND_PRECHARGE":        5,
+		"CHARGE_PHASE_KIND_CONSTANT_POWER":   6,
+		"CHARGE_PHASE_KIND_OVERCHARGE":       7,
 	}
 )
 
@@ -743,9 +751,12 @@ type Charger struct {
 	// Largest power into the pack, in watts; non-negative.
 	MaxPowerWatts float64 `protobuf:"fixed64,2,opt,name=max_power_watts,json=maxPowerWatts,proto3" json:"max_power_watts,omitempty"`
 	// Charger efficiency from the mains to the pack, a fraction in (0, 1]; 0 means 1.
-	Efficiency    float64 `protobuf:"fixed64,3,opt,name=efficiency,proto3" json:"efficiency,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Efficiency float64 `protobuf:"fixed64,3,opt,name=efficiency,proto3" json:"efficiency,omitempty"`
+	// Largest charger output voltage at the pack terminals, in volts; non-negative. 0
+	// means the charger reaches whatever the chemistry needs.
+	MaxVoltageVolts float64 `protobuf:"fixed64,4,opt,name=max_voltage_volts,json=maxVoltageVolts,proto3" json:"max_voltage_volts,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *Charger) Reset() {
@@ -799,6 +810,13 @@ func (x *Charger) GetEfficiency() float64 {
 	return 0
 }
 
+func (x *Charger) GetMaxVoltageVolts() float64 {
+	if x != nil {
+		return x.MaxVoltageVolts
+	}
+	return 0
+}
+
 // PlanChargeRequest is the request of PlanCharge. Exactly one of battery and pack is
 // set.
 type PlanChargeRequest struct {
@@ -818,9 +836,12 @@ type PlanChargeRequest struct {
 	StartTime *timestamppb.Timestamp `protobuf:"bytes,6,opt,name=start_time,json=startTime,proto3" json:"start_time,omitempty"`
 	// When the target must be reached. Optional: when set, the plan uses the lowest
 	// current that meets it (kinder to the cells), and says whether it can be met.
-	DeadlineTime  *timestamppb.Timestamp `protobuf:"bytes,7,opt,name=deadline_time,json=deadlineTime,proto3" json:"deadline_time,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	DeadlineTime *timestamppb.Timestamp `protobuf:"bytes,7,opt,name=deadline_time,json=deadlineTime,proto3" json:"deadline_time,omitempty"`
+	// Current at which the constant-voltage (or absorption) phase ends, as a C-rate in
+	// [0, 1) (0.05 is C/20). Optional: 0 means the type's own value, or C/20.
+	TerminationCRate float64 `protobuf:"fixed64,8,opt,name=termination_c_rate,json=terminationCRate,proto3" json:"termination_c_rate,omitempty"`
+	unknownFields    protoimpl.UnknownFields
+	sizeCache        protoimpl.SizeCache
 }
 
 func (x *PlanChargeRequest) Reset() {
@@ -902,6 +923,13 @@ func (x *PlanChargeRequest) GetDeadlineTime() *timestamppb.Timestamp {
 	return nil
 }
 
+func (x *PlanChargeRequest) GetTerminationCRate() float64 {
+	if x != nil {
+		return x.TerminationCRate
+	}
+	return 0
+}
+
 // PlanChargeResponse is the response of PlanCharge.
 type PlanChargeResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -926,9 +954,28 @@ type PlanChargeResponse struct {
 	// Problems with this plan (too cold, charger too weak, target not reachable).
 	Warnings []*ChargeWarning `protobuf:"bytes,9,rep,name=warnings,proto3" json:"warnings,omitempty"`
 	// Standing safety cautions for the chemistry, in English. Always present.
-	Cautions      []string `protobuf:"bytes,10,rep,name=cautions,proto3" json:"cautions,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Cautions []string `protobuf:"bytes,10,rep,name=cautions,proto3" json:"cautions,omitempty"`
+	// Whether the plan reaches target_state_of_charge (false when, for example, the
+	// charger's voltage limit stops it short).
+	TargetReached bool `protobuf:"varint,11,opt,name=target_reached,json=targetReached,proto3" json:"target_reached,omitempty"`
+	// Time from start until the charge terminates (the charger stops or, for lead-acid,
+	// goes to float). Unset when the charge does not terminate within the 72 hours
+	// simulated.
+	FullDuration *durationpb.Duration `protobuf:"bytes,12,opt,name=full_duration,json=fullDuration,proto3" json:"full_duration,omitempty"`
+	// What ends the full charge, UPPER_SNAKE_CASE: "TAPER" (current fell to the
+	// termination current), "SOC_FULL", "ABSORPTION_TIMER", "MINUS_DELTA_V", "TIMER",
+	// "VOLTAGE_CEILING" or "NONE" (not within 72 hours). Open to new values.
+	Termination string `protobuf:"bytes,13,opt,name=termination,proto3" json:"termination,omitempty"`
+	// Pack voltage of the constant-voltage (absorption) phase, in volts, after
+	// temperature compensation and the charger's voltage limit; for nickel the voltage
+	// ceiling.
+	ChargeVoltageVolts float64 `protobuf:"fixed64,14,opt,name=charge_voltage_volts,json=chargeVoltageVolts,proto3" json:"charge_voltage_volts,omitempty"`
+	// Pack float voltage of lead-acid, in volts; 0 for other chemistries.
+	FloatVoltageVolts float64 `protobuf:"fixed64,15,opt,name=float_voltage_volts,json=floatVoltageVolts,proto3" json:"float_voltage_volts,omitempty"`
+	// Current at which the taper ends, in amperes, as a positive number; 0 for nickel.
+	TerminationCurrentAmps float64 `protobuf:"fixed64,16,opt,name=termination_current_amps,json=terminationCurrentAmps,proto3" json:"termination_current_amps,omitempty"`
+	unknownFields          protoimpl.UnknownFields
+	sizeCache              protoimpl.SizeCache
 }
 
 func (x *PlanChargeResponse) Reset() {
@@ -1031,6 +1078,48 @@ func (x *PlanChargeResponse) GetCautions() []string {
 	return nil
 }
 
+func (x *PlanChargeResponse) GetTargetReached() bool {
+	if x != nil {
+		return x.TargetReached
+	}
+	return false
+}
+
+func (x *PlanChargeResponse) GetFullDuration() *durationpb.Duration {
+	if x != nil {
+		return x.FullDuration
+	}
+	return nil
+}
+
+func (x *PlanChargeResponse) GetTermination() string {
+	if x != nil {
+		return x.Termination
+	}
+	return ""
+}
+
+func (x *PlanChargeResponse) GetChargeVoltageVolts() float64 {
+	if x != nil {
+		return x.ChargeVoltageVolts
+	}
+	return 0
+}
+
+func (x *PlanChargeResponse) GetFloatVoltageVolts() float64 {
+	if x != nil {
+		return x.FloatVoltageVolts
+	}
+	return 0
+}
+
+func (x *PlanChargeResponse) GetTerminationCurrentAmps() float64 {
+	if x != nil {
+		return x.TerminationCurrentAmps
+	}
+	return 0
+}
+
 // ChargePhase is one phase of a charge plan.
 type ChargePhase struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -1050,8 +1139,13 @@ type ChargePhase struct {
 	StartStateOfCharge float64 `protobuf:"fixed64,7,opt,name=start_state_of_charge,json=startStateOfCharge,proto3" json:"start_state_of_charge,omitempty"`
 	// State of charge at the end of the phase, a fraction.
 	EndStateOfCharge float64 `protobuf:"fixed64,8,opt,name=end_state_of_charge,json=endStateOfCharge,proto3" json:"end_state_of_charge,omitempty"`
-	unknownFields    protoimpl.UnknownFields
-	sizeCache        protoimpl.SizeCache
+	// Charge put into the pack during the phase, in ampere-hours.
+	ChargeAmpHours float64 `protobuf:"fixed64,9,opt,name=charge_amp_hours,json=chargeAmpHours,proto3" json:"charge_amp_hours,omitempty"`
+	// Energy put into the pack during the phase, in watt-hours (before charger
+	// efficiency).
+	EnergyWattHours float64 `protobuf:"fixed64,10,opt,name=energy_watt_hours,json=energyWattHours,proto3" json:"energy_watt_hours,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *ChargePhase) Reset() {
@@ -1140,11 +1234,30 @@ func (x *ChargePhase) GetEndStateOfCharge() float64 {
 	return 0
 }
 
+func (x *ChargePhase) GetChargeAmpHours() float64 {
+	if x != nil {
+		return x.ChargeAmpHours
+	}
+	return 0
+}
+
+func (x *ChargePhase) GetEnergyWattHours() float64 {
+	if x != nil {
+		return x.EnergyWattHours
+	}
+	return 0
+}
+
 // ChargeWarning is one problem with a charge plan.
 type ChargeWarning struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// Machine-readable code, UPPER_SNAKE_CASE, for example "TOO_COLD", "TOO_HOT",
-	// "CHARGER_TOO_WEAK", "DEADLINE_NOT_MET", "OVERCHARGE". Open to new values.
+	// Machine-readable code, UPPER_SNAKE_CASE. Open to new values. Current ones:
+	// "COLD_DERATE" (current reduced in the cold), "BELOW_FREEZING", "CURRENT_CAPPED"
+	// (charger above the cell's maximum rate), "CHARGER_VOLTAGE_LOW",
+	// "TARGET_ABOVE_LIMIT", "TARGET_NOT_REACHED", "DEADLINE_UNREACHABLE",
+	// "ALREADY_AT_TARGET", "BELOW_CUTOFF" (deeply discharged), "BELOW_FLOOR",
+	// "WEAK_DELTA_V", "PARTIAL_NICKEL", "PARTIAL_LEAD_ACID", "NOT_FULL",
+	// "VOLTAGE_CEILING".
 	Code string `protobuf:"bytes,1,opt,name=code,proto3" json:"code,omitempty"`
 	// Human-readable detail, in English.
 	Message       string `protobuf:"bytes,2,opt,name=message,proto3" json:"message,omitempty"`
@@ -1357,7 +1470,15 @@ type AssessHealthResponse struct {
 	// history has no times or no fade is detected.
 	EndOfLifeTime *timestamppb.Timestamp `protobuf:"bytes,8,opt,name=end_of_life_time,json=endOfLifeTime,proto3" json:"end_of_life_time,omitempty"`
 	// Notes on the assessment (too few points, noisy trend), in English.
-	Notes         []string `protobuf:"bytes,9,rep,name=notes,proto3" json:"notes,omitempty"`
+	Notes []string `protobuf:"bytes,9,rep,name=notes,proto3" json:"notes,omitempty"`
+	// The capacity-fade law the projection chose, one of "LINEAR", "SQUARE_ROOT",
+	// "POWER_LAW", "EXPONENTIAL"; empty when nothing was projected. Open to new values.
+	TrendModel string `protobuf:"bytes,10,opt,name=trend_model,json=trendModel,proto3" json:"trend_model,omitempty"`
+	// Number of history points the trend was fitted to (after merging points of equal
+	// equivalent full cycles).
+	PointCount int32 `protobuf:"varint,11,opt,name=point_count,json=pointCount,proto3" json:"point_count,omitempty"`
+	// Number of those points the robust fit set aside as outliers.
+	OutlierCount  int32 `protobuf:"varint,12,opt,name=outlier_count,json=outlierCount,proto3" json:"outlier_count,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1455,6 +1576,27 @@ func (x *AssessHealthResponse) GetNotes() []string {
 	return nil
 }
 
+func (x *AssessHealthResponse) GetTrendModel() string {
+	if x != nil {
+		return x.TrendModel
+	}
+	return ""
+}
+
+func (x *AssessHealthResponse) GetPointCount() int32 {
+	if x != nil {
+		return x.PointCount
+	}
+	return 0
+}
+
+func (x *AssessHealthResponse) GetOutlierCount() int32 {
+	if x != nil {
+		return x.OutlierCount
+	}
+	return 0
+}
+
 var File_voltcast_v1_forecast_proto protoreflect.FileDescriptor
 
 const file_voltcast_v1_forecast_proto_rawDesc = "" +
@@ -1502,13 +1644,14 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x11end_voltage_volts\x18\a \x01(\x01R\x0fendVoltageVolts\x12<\n" +
 	"\n" +
 	"end_reason\x18\b \x01(\x0e2\x1d.voltcast.v1.RuntimeEndReasonR\tendReason\x12\x1a\n" +
-	"\bwarnings\x18\t \x03(\tR\bwarnings\"{\n" +
+	"\bwarnings\x18\t \x03(\tR\bwarnings\"\xa7\x01\n" +
 	"\aCharger\x12(\n" +
 	"\x10max_current_amps\x18\x01 \x01(\x01R\x0emaxCurrentAmps\x12&\n" +
 	"\x0fmax_power_watts\x18\x02 \x01(\x01R\rmaxPowerWatts\x12\x1e\n" +
 	"\n" +
 	"efficiency\x18\x03 \x01(\x01R\n" +
-	"efficiency\"\x87\x03\n" +
+	"efficiency\x12*\n" +
+	"\x11max_voltage_volts\x18\x04 \x01(\x01R\x0fmaxVoltageVolts\"\xb5\x03\n" +
 	"\x11PlanChargeRequest\x12\x18\n" +
 	"\abattery\x18\x01 \x01(\tR\abattery\x12)\n" +
 	"\x04pack\x18\x02 \x01(\v2\x15.voltcast.v1.PackSpecR\x04pack\x123\n" +
@@ -1517,8 +1660,9 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\acharger\x18\x05 \x01(\v2\x14.voltcast.v1.ChargerR\acharger\x129\n" +
 	"\n" +
 	"start_time\x18\x06 \x01(\v2\x1a.google.protobuf.TimestampR\tstartTime\x12?\n" +
-	"\rdeadline_time\x18\a \x01(\v2\x1a.google.protobuf.TimestampR\fdeadlineTimeB\x16\n" +
-	"\x14_temperature_celsius\"\xe0\x03\n" +
+	"\rdeadline_time\x18\a \x01(\v2\x1a.google.protobuf.TimestampR\fdeadlineTime\x12,\n" +
+	"\x12termination_c_rate\x18\b \x01(\x01R\x10terminationCRateB\x16\n" +
+	"\x14_temperature_celsius\"\x85\x06\n" +
 	"\x12PlanChargeResponse\x120\n" +
 	"\x06phases\x18\x01 \x03(\v2\x18.voltcast.v1.ChargePhaseR\x06phases\x12.\n" +
 	"\x13charge_current_amps\x18\x02 \x01(\x01R\x11chargeCurrentAmps\x125\n" +
@@ -1530,7 +1674,13 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\fdeadline_met\x18\b \x01(\bR\vdeadlineMet\x126\n" +
 	"\bwarnings\x18\t \x03(\v2\x1a.voltcast.v1.ChargeWarningR\bwarnings\x12\x1a\n" +
 	"\bcautions\x18\n" +
-	" \x03(\tR\bcautions\"\x8c\x03\n" +
+	" \x03(\tR\bcautions\x12%\n" +
+	"\x0etarget_reached\x18\v \x01(\bR\rtargetReached\x12>\n" +
+	"\rfull_duration\x18\f \x01(\v2\x19.google.protobuf.DurationR\ffullDuration\x12 \n" +
+	"\vtermination\x18\r \x01(\tR\vtermination\x120\n" +
+	"\x14charge_voltage_volts\x18\x0e \x01(\x01R\x12chargeVoltageVolts\x12.\n" +
+	"\x13float_voltage_volts\x18\x0f \x01(\x01R\x11floatVoltageVolts\x128\n" +
+	"\x18termination_current_amps\x18\x10 \x01(\x01R\x16terminationCurrentAmps\"\xe2\x03\n" +
 	"\vChargePhase\x120\n" +
 	"\x04kind\x18\x01 \x01(\x0e2\x1c.voltcast.v1.ChargePhaseKindR\x04kind\x125\n" +
 	"\bduration\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\bduration\x12,\n" +
@@ -1539,7 +1689,10 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x13start_voltage_volts\x18\x05 \x01(\x01R\x11startVoltageVolts\x12*\n" +
 	"\x11end_voltage_volts\x18\x06 \x01(\x01R\x0fendVoltageVolts\x121\n" +
 	"\x15start_state_of_charge\x18\a \x01(\x01R\x12startStateOfCharge\x12-\n" +
-	"\x13end_state_of_charge\x18\b \x01(\x01R\x10endStateOfCharge\"=\n" +
+	"\x13end_state_of_charge\x18\b \x01(\x01R\x10endStateOfCharge\x12(\n" +
+	"\x10charge_amp_hours\x18\t \x01(\x01R\x0echargeAmpHours\x12*\n" +
+	"\x11energy_watt_hours\x18\n" +
+	" \x01(\x01R\x0fenergyWattHours\"=\n" +
 	"\rChargeWarning\x12\x12\n" +
 	"\x04code\x18\x01 \x01(\tR\x04code\x12\x18\n" +
 	"\amessage\x18\x02 \x01(\tR\amessage\"\xe0\x01\n" +
@@ -1551,7 +1704,7 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x13AssessHealthRequest\x12\x18\n" +
 	"\abattery\x18\x01 \x01(\tR\abattery\x122\n" +
 	"\ahistory\x18\x02 \x03(\v2\x18.voltcast.v1.HealthPointR\ahistory\x12@\n" +
-	"\x1dend_of_life_capacity_fraction\x18\x03 \x01(\x01R\x19endOfLifeCapacityFraction\"\xd9\x03\n" +
+	"\x1dend_of_life_capacity_fraction\x18\x03 \x01(\x01R\x19endOfLifeCapacityFraction\"\xc0\x04\n" +
 	"\x14AssessHealthResponse\x12+\n" +
 	"\x11capacity_fraction\x18\x01 \x01(\x01R\x10capacityFraction\x12/\n" +
 	"\x13resistance_fraction\x18\x02 \x01(\x01R\x12resistanceFraction\x124\n" +
@@ -1561,20 +1714,28 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x18end_of_life_cycles_lower\x18\x06 \x01(\x01R\x14endOfLifeCyclesLower\x126\n" +
 	"\x18end_of_life_cycles_upper\x18\a \x01(\x01R\x14endOfLifeCyclesUpper\x12C\n" +
 	"\x10end_of_life_time\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\rendOfLifeTime\x12\x14\n" +
-	"\x05notes\x18\t \x03(\tR\x05notes*\xcd\x01\n" +
+	"\x05notes\x18\t \x03(\tR\x05notes\x12\x1f\n" +
+	"\vtrend_model\x18\n" +
+	" \x01(\tR\n" +
+	"trendModel\x12\x1f\n" +
+	"\vpoint_count\x18\v \x01(\x05R\n" +
+	"pointCount\x12#\n" +
+	"\routlier_count\x18\f \x01(\x05R\foutlierCount*\xcd\x01\n" +
 	"\x10RuntimeEndReason\x12\"\n" +
 	"\x1eRUNTIME_END_REASON_UNSPECIFIED\x10\x00\x12%\n" +
 	"!RUNTIME_END_REASON_CUTOFF_VOLTAGE\x10\x01\x12+\n" +
 	"'RUNTIME_END_REASON_LOAD_NOT_DELIVERABLE\x10\x02\x12\x1c\n" +
 	"\x18RUNTIME_END_REASON_EMPTY\x10\x03\x12#\n" +
-	"\x1fRUNTIME_END_REASON_MAX_DURATION\x10\x04*\xe4\x01\n" +
+	"\x1fRUNTIME_END_REASON_MAX_DURATION\x10\x04*\xac\x02\n" +
 	"\x0fChargePhaseKind\x12!\n" +
 	"\x1dCHARGE_PHASE_KIND_UNSPECIFIED\x10\x00\x12&\n" +
 	"\"CHARGE_PHASE_KIND_CONSTANT_CURRENT\x10\x01\x12&\n" +
 	"\"CHARGE_PHASE_KIND_CONSTANT_VOLTAGE\x10\x02\x12 \n" +
 	"\x1cCHARGE_PHASE_KIND_ABSORPTION\x10\x03\x12\x1b\n" +
 	"\x17CHARGE_PHASE_KIND_FLOAT\x10\x04\x12\x1f\n" +
-	"\x1bCHARGE_PHASE_KIND_PRECHARGE\x10\x052\xa2\x02\n" +
+	"\x1bCHARGE_PHASE_KIND_PRECHARGE\x10\x05\x12$\n" +
+	" CHARGE_PHASE_KIND_CONSTANT_POWER\x10\x06\x12 \n" +
+	"\x1cCHARGE_PHASE_KIND_OVERCHARGE\x10\a2\xa2\x02\n" +
 	"\x0fForecastService\x12a\n" +
 	"\x0fForecastRuntime\x12#.voltcast.v1.ForecastRuntimeRequest\x1a$.voltcast.v1.ForecastRuntimeResponse\"\x03\x90\x02\x01\x12R\n" +
 	"\n" +
@@ -1634,22 +1795,23 @@ var file_voltcast_v1_forecast_proto_depIdxs = []int32{
 	16, // 15: voltcast.v1.PlanChargeResponse.duration:type_name -> google.protobuf.Duration
 	17, // 16: voltcast.v1.PlanChargeResponse.end_time:type_name -> google.protobuf.Timestamp
 	12, // 17: voltcast.v1.PlanChargeResponse.warnings:type_name -> voltcast.v1.ChargeWarning
-	1,  // 18: voltcast.v1.ChargePhase.kind:type_name -> voltcast.v1.ChargePhaseKind
-	16, // 19: voltcast.v1.ChargePhase.duration:type_name -> google.protobuf.Duration
-	17, // 20: voltcast.v1.HealthPoint.observe_time:type_name -> google.protobuf.Timestamp
-	13, // 21: voltcast.v1.AssessHealthRequest.history:type_name -> voltcast.v1.HealthPoint
-	17, // 22: voltcast.v1.AssessHealthResponse.end_of_life_time:type_name -> google.protobuf.Timestamp
-	6,  // 23: voltcast.v1.ForecastService.ForecastRuntime:input_type -> voltcast.v1.ForecastRuntimeRequest
-	9,  // 24: voltcast.v1.ForecastService.PlanCharge:input_type -> voltcast.v1.PlanChargeRequest
-	14, // 25: voltcast.v1.ForecastService.AssessHealth:input_type -> voltcast.v1.AssessHealthRequest
-	7,  // 26: voltcast.v1.ForecastService.ForecastRuntime:output_type -> voltcast.v1.ForecastRuntimeResponse
-	10, // 27: voltcast.v1.ForecastService.PlanCharge:output_type -> voltcast.v1.PlanChargeResponse
-	15, // 28: voltcast.v1.ForecastService.AssessHealth:output_type -> voltcast.v1.AssessHealthResponse
-	26, // [26:29] is the sub-list for method output_type
-	23, // [23:26] is the sub-list for method input_type
-	23, // [23:23] is the sub-list for extension type_name
-	23, // [23:23] is the sub-list for extension extendee
-	0,  // [0:23] is the sub-list for field type_name
+	16, // 18: voltcast.v1.PlanChargeResponse.full_duration:type_name -> google.protobuf.Duration
+	1,  // 19: voltcast.v1.ChargePhase.kind:type_name -> voltcast.v1.ChargePhaseKind
+	16, // 20: voltcast.v1.ChargePhase.duration:type_name -> google.protobuf.Duration
+	17, // 21: voltcast.v1.HealthPoint.observe_time:type_name -> google.protobuf.Timestamp
+	13, // 22: voltcast.v1.AssessHealthRequest.history:type_name -> voltcast.v1.HealthPoint
+	17, // 23: voltcast.v1.AssessHealthResponse.end_of_life_time:type_name -> google.protobuf.Timestamp
+	6,  // 24: voltcast.v1.ForecastService.ForecastRuntime:input_type -> voltcast.v1.ForecastRuntimeRequest
+	9,  // 25: voltcast.v1.ForecastService.PlanCharge:input_type -> voltcast.v1.PlanChargeRequest
+	14, // 26: voltcast.v1.ForecastService.AssessHealth:input_type -> voltcast.v1.AssessHealthRequest
+	7,  // 27: voltcast.v1.ForecastService.ForecastRuntime:output_type -> voltcast.v1.ForecastRuntimeResponse
+	10, // 28: voltcast.v1.ForecastService.PlanCharge:output_type -> voltcast.v1.PlanChargeResponse
+	15, // 29: voltcast.v1.ForecastService.AssessHealth:output_type -> voltcast.v1.AssessHealthResponse
+	27, // [27:30] is the sub-list for method output_type
+	24, // [24:27] is the sub-list for method input_type
+	24, // [24:24] is the sub-list for extension type_name
+	24, // [24:24] is the sub-list for extension extendee
+	0,  // [0:24] is the sub-list for field type_name
 }
 
 func init() { file_voltcast_v1_forecast_proto_init() }

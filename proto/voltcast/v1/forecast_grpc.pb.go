@@ -46,8 +46,14 @@ type ForecastServiceClient interface {
 	// from the uncertainty of state of charge and capacity.
 	ForecastRuntime(ctx context.Context, in *ForecastRuntimeRequest, opts ...grpc.CallOption) (*ForecastRuntimeResponse, error)
 	// PlanCharge plans a charge to a target state of charge: the phases, the current to
-	// use, the time and energy needed, whether a deadline is met, and warnings. A primary
-	// (non-rechargeable) type is FAILED_PRECONDITION.
+	// use, the time and energy needed, whether a deadline is met, warnings and the
+	// standing safety cautions of the chemistry. Refusals are FAILED_PRECONDITION with a
+	// google.rpc.PreconditionFailure and the cautions in the ErrorInfo metadata: a
+	// primary (non-rechargeable) type, reason NOT_RECHARGEABLE (primary cells must never
+	// be charged); a temperature outside the type's charge window, reason
+	// OUTSIDE_CHARGE_TEMPERATURE. FAILED_PRECONDITION rather than INVALID_ARGUMENT
+	// because the request is well formed: what forbids the charge is the state of the
+	// battery (its chemistry, its temperature), as AIP-193 describes the two codes.
 	PlanCharge(ctx context.Context, in *PlanChargeRequest, opts ...grpc.CallOption) (*PlanChargeResponse, error)
 	// AssessHealth fits a capacity-fade trend to a battery's health history (or to
 	// points given in the request) and projects when it reaches end of life.
@@ -114,8 +120,14 @@ type ForecastServiceServer interface {
 	// from the uncertainty of state of charge and capacity.
 	ForecastRuntime(context.Context, *ForecastRuntimeRequest) (*ForecastRuntimeResponse, error)
 	// PlanCharge plans a charge to a target state of charge: the phases, the current to
-	// use, the time and energy needed, whether a deadline is met, and warnings. A primary
-	// (non-rechargeable) type is FAILED_PRECONDITION.
+	// use, the time and energy needed, whether a deadline is met, warnings and the
+	// standing safety cautions of the chemistry. Refusals are FAILED_PRECONDITION with a
+	// google.rpc.PreconditionFailure and the cautions in the ErrorInfo metadata: a
+	// primary (non-rechargeable) type, reason NOT_RECHARGEABLE (primary cells must never
+	// be charged); a temperature outside the type's charge window, reason
+	// OUTSIDE_CHARGE_TEMPERATURE. FAILED_PRECONDITION rather than INVALID_ARGUMENT
+	// because the request is well formed: what forbids the charge is the state of the
+	// battery (its chemistry, its temperature), as AIP-193 describes the two codes.
 	PlanCharge(context.Context, *PlanChargeRequest) (*PlanChargeResponse, error)
 	// AssessHealth fits a capacity-fade trend to a battery's health history (or to
 	// points given in the request) and projects when it reaches end of life.

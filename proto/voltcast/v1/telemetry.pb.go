@@ -35,7 +35,9 @@ const (
 	SampleRejectionReason_SAMPLE_REJECTION_REASON_OUT_OF_RANGE SampleRejectionReason = 2
 	// The sample time is earlier than the battery's last applied sample.
 	SampleRejectionReason_SAMPLE_REJECTION_REASON_TIME_BACKWARDS SampleRejectionReason = 3
-	// The estimator rejected the sample as an outlier (innovation gate).
+	// The estimator discarded the sample's voltage as an outlier (innovation gate). Used
+	// only in BlockResult.outliers: the sample's current still moved the estimate, so
+	// it counts as applied, not rejected.
 	SampleRejectionReason_SAMPLE_REJECTION_REASON_OUTLIER SampleRejectionReason = 4
 )
 
@@ -193,7 +195,8 @@ func (x *SampleBlock) GetTemperatureCelsius() []float64 {
 }
 
 // SampleRejection explains why one sample was rejected. A rejected sample changes
-// nothing; later valid samples of the same block are still applied.
+// nothing; later valid samples of the same block are still applied. The same message
+// lists outliers in BlockResult.outliers; those samples were applied (see there).
 type SampleRejection struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Index of the sample in its block, from 0.
@@ -285,7 +288,15 @@ type BlockResult struct {
 	Error *BlockError `protobuf:"bytes,6,opt,name=error,proto3" json:"error,omitempty"`
 	// The battery's state after the block, including both watermarks. Unset when error is
 	// set.
-	State         *BatteryState `protobuf:"bytes,7,opt,name=state,proto3" json:"state,omitempty"`
+	State *BatteryState `protobuf:"bytes,7,opt,name=state,proto3" json:"state,omitempty"`
+	// Of applied_count, the samples whose voltage the estimator discarded as an outlier
+	// (innovation gate). Their current still advanced the estimate (charge counting)
+	// and the applied watermark, so they count as applied and a resend skips them as
+	// duplicates; a high share means bad sensors or a wrong battery type.
+	OutlierCount int32 `protobuf:"varint,8,opt,name=outlier_count,json=outlierCount,proto3" json:"outlier_count,omitempty"`
+	// One entry per outlier sample, reason OUTLIER, at most 100 (outlier_count counts
+	// them all).
+	Outliers      []*SampleRejection `protobuf:"bytes,9,rep,name=outliers,proto3" json:"outliers,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -365,6 +376,20 @@ func (x *BlockResult) GetError() *BlockError {
 func (x *BlockResult) GetState() *BatteryState {
 	if x != nil {
 		return x.State
+	}
+	return nil
+}
+
+func (x *BlockResult) GetOutlierCount() int32 {
+	if x != nil {
+		return x.OutlierCount
+	}
+	return 0
+}
+
+func (x *BlockResult) GetOutliers() []*SampleRejection {
+	if x != nil {
+		return x.Outliers
 	}
 	return nil
 }
@@ -646,7 +671,7 @@ const file_voltcast_v1_telemetry_proto_rawDesc = "" +
 	"\x05index\x18\x01 \x01(\x05R\x05index\x12'\n" +
 	"\x0fsequence_number\x18\x02 \x01(\x03R\x0esequenceNumber\x12:\n" +
 	"\x06reason\x18\x03 \x01(\x0e2\".voltcast.v1.SampleRejectionReasonR\x06reason\x12\x18\n" +
-	"\amessage\x18\x04 \x01(\tR\amessage\"\xba\x02\n" +
+	"\amessage\x18\x04 \x01(\tR\amessage\"\x99\x03\n" +
 	"\vBlockResult\x12\x18\n" +
 	"\abattery\x18\x01 \x01(\tR\abattery\x12#\n" +
 	"\rapplied_count\x18\x02 \x01(\x05R\fappliedCount\x12'\n" +
@@ -656,7 +681,9 @@ const file_voltcast_v1_telemetry_proto_rawDesc = "" +
 	"rejections\x18\x05 \x03(\v2\x1c.voltcast.v1.SampleRejectionR\n" +
 	"rejections\x12-\n" +
 	"\x05error\x18\x06 \x01(\v2\x17.voltcast.v1.BlockErrorR\x05error\x12/\n" +
-	"\x05state\x18\a \x01(\v2\x19.voltcast.v1.BatteryStateR\x05state\"h\n" +
+	"\x05state\x18\a \x01(\v2\x19.voltcast.v1.BatteryStateR\x05state\x12#\n" +
+	"\routlier_count\x18\b \x01(\x05R\foutlierCount\x128\n" +
+	"\boutliers\x18\t \x03(\v2\x1c.voltcast.v1.SampleRejectionR\boutliers\"h\n" +
 	"\n" +
 	"BlockError\x12\x12\n" +
 	"\x04code\x18\x01 \x01(\tR\x04code\x12\x16\n" +
@@ -714,19 +741,20 @@ var file_voltcast_v1_telemetry_proto_depIdxs = []int32{
 	2,  // 2: voltcast.v1.BlockResult.rejections:type_name -> voltcast.v1.SampleRejection
 	4,  // 3: voltcast.v1.BlockResult.error:type_name -> voltcast.v1.BlockError
 	10, // 4: voltcast.v1.BlockResult.state:type_name -> voltcast.v1.BatteryState
-	1,  // 5: voltcast.v1.StreamTelemetryRequest.block:type_name -> voltcast.v1.SampleBlock
-	3,  // 6: voltcast.v1.StreamTelemetryResponse.result:type_name -> voltcast.v1.BlockResult
-	1,  // 7: voltcast.v1.IngestTelemetryRequest.blocks:type_name -> voltcast.v1.SampleBlock
-	3,  // 8: voltcast.v1.IngestTelemetryResponse.results:type_name -> voltcast.v1.BlockResult
-	5,  // 9: voltcast.v1.TelemetryService.StreamTelemetry:input_type -> voltcast.v1.StreamTelemetryRequest
-	7,  // 10: voltcast.v1.TelemetryService.IngestTelemetry:input_type -> voltcast.v1.IngestTelemetryRequest
-	6,  // 11: voltcast.v1.TelemetryService.StreamTelemetry:output_type -> voltcast.v1.StreamTelemetryResponse
-	8,  // 12: voltcast.v1.TelemetryService.IngestTelemetry:output_type -> voltcast.v1.IngestTelemetryResponse
-	11, // [11:13] is the sub-list for method output_type
-	9,  // [9:11] is the sub-list for method input_type
-	9,  // [9:9] is the sub-list for extension type_name
-	9,  // [9:9] is the sub-list for extension extendee
-	0,  // [0:9] is the sub-list for field type_name
+	2,  // 5: voltcast.v1.BlockResult.outliers:type_name -> voltcast.v1.SampleRejection
+	1,  // 6: voltcast.v1.StreamTelemetryRequest.block:type_name -> voltcast.v1.SampleBlock
+	3,  // 7: voltcast.v1.StreamTelemetryResponse.result:type_name -> voltcast.v1.BlockResult
+	1,  // 8: voltcast.v1.IngestTelemetryRequest.blocks:type_name -> voltcast.v1.SampleBlock
+	3,  // 9: voltcast.v1.IngestTelemetryResponse.results:type_name -> voltcast.v1.BlockResult
+	5,  // 10: voltcast.v1.TelemetryService.StreamTelemetry:input_type -> voltcast.v1.StreamTelemetryRequest
+	7,  // 11: voltcast.v1.TelemetryService.IngestTelemetry:input_type -> voltcast.v1.IngestTelemetryRequest
+	6,  // 12: voltcast.v1.TelemetryService.StreamTelemetry:output_type -> voltcast.v1.StreamTelemetryResponse
+	8,  // 13: voltcast.v1.TelemetryService.IngestTelemetry:output_type -> voltcast.v1.IngestTelemetryResponse
+	12, // [12:14] is the sub-list for method output_type
+	10, // [10:12] is the sub-list for method input_type
+	10, // [10:10] is the sub-list for extension type_name
+	10, // [10:10] is the sub-list for extension extendee
+	0,  // [0:10] is the sub-list for field type_name
 }
 
 func init() { file_voltcast_v1_telemetry_proto_init() }
