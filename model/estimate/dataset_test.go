@@ -270,11 +270,11 @@ func TestRealPanasonic18650PF(t *testing.T) {
 		// Sanity bounds for this hand-made type: the targets (RMSE ≤ 1.5 %,
 		// max ≤ 4 %) belong to fitted types in the validation table; here the filter
 		// must converge from 20 % off within a minute when the file starts rested and
-		// within 15 min when it starts under load, keep the RMSE within 2 % and the
+		// within 20 min when it starts under load, keep the RMSE within 2 % and the
 		// error within 3 % above the knee, and beat coulomb counting from the same
 		// wrong start by far.
-		if c.ekfRMSE > 0.02 || c.ekfMax20 > 0.03 || !(c.ekfWithin <= 60) || !(c.midWithin <= 900) {
-			t.Errorf("%s: EKF RMSE %.2f %%, max above 20 %% SOC %.2f %%, within 2 %% after %.0f s (%.0f s from under load); want ≤ 2 %%, ≤ 3 %%, ≤ 60 s, ≤ 900 s",
+		if c.ekfRMSE > 0.02 || c.ekfMax20 > 0.03 || !(c.ekfWithin <= 60) || !(c.midWithin <= 1200) {
+			t.Errorf("%s: EKF RMSE %.2f %%, max above 20 %% SOC %.2f %%, within 2 %% after %.0f s (%.0f s from under load); want ≤ 2 %%, ≤ 3 %%, ≤ 60 s, ≤ 1200 s",
 				name, 100*c.ekfRMSE, 100*c.ekfMax20, c.ekfWithin, c.midWithin)
 		}
 		if c.ekfRMSE > c.countRMSE/5 {
@@ -326,8 +326,8 @@ func TestRealDMEGC18650(t *testing.T) {
 		sumCount += c.countRMSE * c.countRMSE
 		worst = math.Max(worst, c.ekfMax)
 		worst20 = math.Max(worst20, c.ekfMax20)
-		if !(c.ekfWithin <= 60) || !(c.midWithin <= 900) {
-			t.Errorf("%s: EKF from 20 %% off came within 2 %% after %.0f s (%.0f s from under load); want ≤ 60 s and ≤ 900 s", r.Name, c.ekfWithin, c.midWithin)
+		if !(c.ekfWithin <= 60) || !(c.midWithin <= 1200) {
+			t.Errorf("%s: EKF from 20 %% off came within 2 %% after %.0f s (%.0f s from under load); want ≤ 60 s and ≤ 1200 s", r.Name, c.ekfWithin, c.midWithin)
 		}
 	}
 	rms, rmsCount := math.Sqrt(sum/float64(n)), math.Sqrt(sumCount/float64(n))

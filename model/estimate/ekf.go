@@ -414,6 +414,13 @@ func (f *EKF) measurement(x *vec, i, tk float64, rest bool, dt float64) (yhat fl
 	if rest {
 		model = f.cfg.restModelVar
 	}
+	if f.cfg.paramErr2 > 0 {
+		drop := math.Abs(r0 * rf * ic)
+		for k := range l.nb {
+			drop += math.Abs(x[1+k])
+		}
+		model += f.cfg.paramErr2 * drop * drop * ns * ns
+	}
 	if dt < f.cfg.modelTau {
 		model *= f.cfg.modelTau / dt
 	}

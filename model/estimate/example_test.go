@@ -58,7 +58,7 @@ func ExampleEKF() {
 	}
 	fmt.Printf("truth %.2f, filter %.2f ± %.3f, counter %.2f\n", truth.SOC, e.SOC, e.SOCSigma, c.SOC)
 	// Output:
-	// truth 0.60, filter 0.60 ± 0.006, counter 0.40
+	// truth 0.60, filter 0.60 ± 0.008, counter 0.40
 }
 
 // Run feeds a batch of samples, here an ideal 1 A discharge for 30 min after a

@@ -134,6 +134,13 @@ type Settings struct {
 	ModelSigma float64
 	// RestModelSigma is the model's voltage error per cell at rest, V. Default 0.004.
 	RestModelSigma float64
+	// ParameterError is the relative error of the modelled ohmic drop and
+	// polarisation voltages, which makes the model error grow with the load: the model
+	// variance under load gains (ParameterError·(R0·|i| + Σ|vₖ|))² per cell. Equivalent
+	// circuits are usually identified at one or two currents and used at others, where
+	// their resistances err by tens of per cent. Default 0.2; a negative value adds
+	// nothing.
+	ParameterError float64
 	// ModelCorrelationTime is how long the model's voltage error stays correlated, s.
 	// Samples closer together than this do not carry independent information about
 	// the model error, so for a sample interval Δt the model variance is scaled by
@@ -232,6 +239,7 @@ func (s *Settings) Validate() error {
 	}{
 		{"voltage_sigma", s.VoltageSigma}, {"model_sigma", s.ModelSigma},
 		{"rest_model_sigma", s.RestModelSigma}, {"model_correlation_time", s.ModelCorrelationTime},
+		{"parameter_error", math.Abs(s.ParameterError)},
 		{"current_sigma", s.CurrentSigma},
 		{"soc_drift", s.SOCDrift}, {"gap_soc_drift", math.Abs(s.GapSOCDrift)}, {"charge_gain_sigma", s.ChargeGainSigma},
 		{"branch_drift", s.BranchDrift}, {"initial_soc_sigma", s.InitialSOCSigma},
@@ -280,6 +288,7 @@ type config struct {
 	modelVar     float64 // pack V², model under load
 	restModelVar float64 // pack V², model at rest
 	modelTau     float64 // s, model error correlation time
+	paramErr2    float64 // relative², error of the ohmic and polarisation drops
 	currentVar   float64 // pack A²
 	socVarRate   float64 // 1/s
 	gapVarRate   float64 // 1/s, extra during gaps
@@ -326,6 +335,7 @@ func resolve(p cell.Pack, s *Settings) config {
 		modelVar:     sq(ns * or(s.ModelSigma, 0.020)),
 		restModelVar: sq(ns * or(s.RestModelSigma, 0.004)),
 		modelTau:     or(s.ModelCorrelationTime, 60),
+		paramErr2:    sq(or(s.ParameterError, 0.2)),
 		currentVar:   sq(or(s.CurrentSigma, 0.005*oneC)),
 		socVarRate:   sq(or(s.SOCDrift, 0.004)) / 3600,
 		gapVarRate:   sq(or(s.GapSOCDrift, 0.2)) / 3600,
@@ -344,6 +354,9 @@ func resolve(p cell.Pack, s *Settings) config {
 		resVar0:      sq(or(s.ResistanceSigma, 0.2)),
 		capVarRate:   sq(or(s.CapacityDrift, 0.002)) / 3600,
 		resVarRate:   sq(or(s.ResistanceDrift, 0.005)) / 3600,
+	}
+	if s.ParameterError < 0 {
+		c.paramErr2 = 0
 	}
 	if s.GapSOCDrift < 0 {
 		c.gapVarRate = 0
