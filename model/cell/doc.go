@@ -12,6 +12,10 @@
 //
 //	v = OCV(z, T) + h − R0·i − Σ vₖ
 //
+// A branch may be a charge-transfer branch ([Branch].ExchangeCurrent): its resistor
+// follows the Butler–Volmer relation, so its voltage grows less than linearly with
+// current, as the overpotential of cold lithium-ion cells does.
+//
 // # Conventions
 //
 // Units are SI: seconds, amperes, volts, ohms, farads, kelvin. Capacity is stored in
@@ -25,7 +29,8 @@
 // # Discretisation
 //
 // [Pack.Step] holds the current constant over the step (zero-order hold) and advances
-// each RC branch by its exact solution, vₖ ← a·vₖ + Rₖ·(1−a)·i with a = exp(−Δt/(RₖCₖ)),
+// each RC branch by its exact solution, vₖ ← a·vₖ + Rₖ·(1−a)·u with a = exp(−Δt/(RₖCₖ))
+// and u = i (or the Butler–Volmer effective current of a charge-transfer branch),
 // so the result is exact for any step length, from milliseconds to hours, while the
 // parameters stay constant over the step. State of charge follows coulomb counting,
 // z ← z − η·i·Δt/(3600·Q), with coulombic efficiency η applied on charge only.

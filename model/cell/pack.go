@@ -119,7 +119,9 @@ func (p Pack) Voltage(s *State, i, tk float64) float64 {
 
 // Step advances s by dt seconds with pack current i (A, positive = discharge) held
 // constant, at temperature tk (K). The RC branches use their exact zero-order-hold
-// solution; parameters are evaluated at the state of charge at the start of the step.
+// solution, vₖ ← a·vₖ + Rₖ·(1−a)·u with u the branch's effective current
+// ([Branch.Drive]: the cell current itself unless the branch is a charge-transfer
+// branch); parameters are evaluated at the state of charge at the start of the step.
 // Step does not clamp the state of charge. It does not allocate.
 func (p Pack) Step(s *State, i, dt, tk float64) {
 	t := p.Type
@@ -131,7 +133,11 @@ func (p Pack) Step(s *State, i, dt, tk float64) {
 		r := b.R.At(z, tk) * rf
 		c := b.C.At(z, tk)
 		a := math.Exp(-dt / (r * c))
-		s.V[k] = a*s.V[k] + r*(1-a)*ic
+		u := ic
+		if b.ExchangeCurrent != nil {
+			u, _ = b.Drive(ic, z, tk)
+		}
+		s.V[k] = a*s.V[k] + r*(1-a)*u
 	}
 	eta := 1.0
 	if ic < 0 {

@@ -1,0 +1,68 @@
+package cell
+
+import (
+	"testing"
+
+	"github.com/voltcast/voltcast/model/table"
+)
+
+// benchType is a 2-RC type whose R0, R and C are tables over state of charge and
+// temperature (the shape fitted types have), with made-up smooth values.
+func benchType(b *testing.B) *Type {
+	b.Helper()
+	typ := testType(b)
+	z := []float64{0, 0.1, 0.3, 0.5, 0.7, 0.9, 1}
+	temps := []float64{263.15, 273.15, 298.15}
+	surf := func(base float64) *table.Surface {
+		var rows [][]float64
+		for j := range temps {
+			var r []float64
+			for k := range z {
+				r = append(r, base*float64(3-j)*(1+0.2*float64(k)))
+			}
+			rows = append(rows, r)
+		}
+		s, err := table.NewSurface(z, temps, rows)
+		if err != nil {
+			b.Fatal(err)
+		}
+		return s
+	}
+	typ.R0 = Param{Table: surf(0.02)}
+	typ.Branches = []Branch{
+		{R: Param{Table: surf(0.01)}, C: Param{Table: surf(100)}},
+		{R: Param{Table: surf(0.02)}, C: Param{Table: surf(2000)}},
+	}
+	if err := typ.Validate(); err != nil {
+		b.Fatal(err)
+	}
+	return typ
+}
+
+// BenchmarkStep is one Pack.Step of a 2-RC cell with tabulated parameters (four table
+// lookups and two exponentials per step).
+func BenchmarkStep(b *testing.B) {
+	p := Pack{Type: benchType(b), Series: 1, Parallel: 1}
+	tk := Kelvin(10)
+	s := State{SOC: 0.6}
+	b.ReportAllocs()
+	for b.Loop() {
+		p.Step(&s, 2, 1, tk)
+		s.SOC = 0.6
+	}
+}
+
+// BenchmarkStepChargeTransfer is BenchmarkStep with the fast branch a charge-transfer
+// branch (one more table lookup and an asinh).
+func BenchmarkStepChargeTransfer(b *testing.B) {
+	typ := benchType(b)
+	typ.Branches[0].ExchangeCurrent = &Param{Table: typ.R0.Table}
+	p := Pack{Type: typ, Series: 1, Parallel: 1}
+	tk := Kelvin(10)
+	s := State{SOC: 0.6}
+	b.ReportAllocs()
+	for b.Loop() {
+		p.Step(&s, 2, 1, tk)
+		s.SOC = 0.6
+	}
+}
