@@ -237,12 +237,22 @@ func printFitReport(w io.Writer, res *fit.Result, out string) {
 		fmt.Fprintf(w, "  %6s %7s %22s", "soc", "r0step", "r0_mohm")
 		for j := range t.Branches {
 			fmt.Fprintf(w, " %22s %22s", fmt.Sprintf("r%d_mohm", j+1), fmt.Sprintf("tau%d_s", j+1))
+			if t.Branches[j].ExchangeCurrent != nil {
+				fmt.Fprintf(w, " %22s", fmt.Sprintf("i0_%d_a", j+1))
+			}
 		}
 		fmt.Fprintf(w, " %8s\n", "rmse_mv")
 		for _, l := range pr.Levels {
 			fmt.Fprintf(w, "  %6.3f %7.2f %22s", l.SOC, l.R0Step*1e3, interval(l.R0, 1e3))
 			for j := range l.R {
 				fmt.Fprintf(w, " %22s %22s", interval(l.R[j], 1e3), interval(l.Tau[j], 1))
+				if j < len(t.Branches) && t.Branches[j].ExchangeCurrent != nil {
+					s := "ohmic"
+					if j < len(l.I0) && !math.IsInf(l.I0[j].Value, 1) {
+						s = interval(l.I0[j], 1)
+					}
+					fmt.Fprintf(w, " %22s", s)
+				}
 			}
 			fmt.Fprintf(w, " %8.2f\n", l.RMSE*1e3)
 		}

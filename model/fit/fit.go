@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"sort"
+	"strings"
 	"time"
 
 	"github.com/voltcast/voltcast/model/cell"
@@ -105,7 +106,12 @@ func LithiumLimits(cutoff float64) cell.Limits {
 //     also gives the OCV its temperature dependence. The low-rate curve keeps its own
 //     row when no pulse test is within 2 K of its temperature.
 //  4. The parameters become tables over state of charge (the union of the level
-//     states of charge, plus 0 and 1 with the end values held) and temperature.
+//     states of charge, plus 0 and 1 with the end values held) and temperature. A
+//     branch fitted as a charge-transfer branch at some level gets an exchange-current
+//     table (interpolated in ln i₀; levels where it came out ohmic count as i₀ = 32×
+//     their largest pulse current). Beyond the tested temperatures each resistance
+//     table follows the Arrhenius law with its own activation energy, and exchange
+//     currents the inverse of their branch's.
 //  5. With Settings.Refine and drive cycles, scale factors on the resistance and
 //     capacitance tables are fitted over the whole drive-cycle voltage traces
 //     ([Refine]).
@@ -295,17 +301,17 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		return vals
 	}
 	// Temperature extension: resistances follow the Arrhenius law beyond the tested
-	// temperatures (capacitances are held), with the activation energy measured between
-	// the two outermost rows at that end, or Settings.ActivationEnergy / the base type's
-	// when only one temperature was tested.
-	total := func(j int, vals [][][]float64) float64 {
+	// temperatures (capacitances are held), each table with its own activation energy
+	// measured between the two outermost rows at that end (the processes behind R0 and
+	// the branches, ionic conduction, charge transfer and diffusion, have different
+	// activation energies [common practice]), or Settings.ActivationEnergy / the base
+	// type's when only one temperature was tested.
+	meanLog := func(v []float64) float64 {
 		var s float64
-		for _, v := range vals {
-			for _, x := range v[j] {
-				s += math.Log(math.Max(x, 1e-12))
-			}
+		for _, x := range v {
+			s += math.Log(math.Max(x, 1e-12))
 		}
-		return s / float64(len(vals)*len(grid))
+		return s / float64(len(v))
 	}
 	resVals := [][][]float64{levelRows(func(l Level) float64 { return l.R0.Value })}
 	for j := range nb {
@@ -315,55 +321,102 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 	for j := range nb {
 		capVals = append(capVals, levelRows(func(l Level) float64 { return l.Tau[j].Value / l.R[j].Value }))
 	}
-	eaLow, eaHigh := ea, ea
-	if n := len(ptemps); n >= 2 {
-		lnRatio := func(a, b int) float64 {
-			return cell.GasConstant * (total(a, resVals) - total(b, resVals)) / (1/ptemps[a] - 1/ptemps[b])
+	// Exchange currents of charge-transfer branches, interpolated in ln i₀ between
+	// levels; a level where the branch came out ohmic counts as i₀ = 32× its largest
+	// pulse current (the upper end of the fitted range, where the branch is ohmic to
+	// within 1e-4 over the tested currents). A branch ohmic at every level stays ohmic.
+	i0Vals := make([][][]float64, nb)
+	for j := range nb {
+		charge := false
+		for _, g := range gs {
+			for _, l := range g.levels {
+				if j < len(l.I0) && !math.IsInf(l.I0[j].Value, 1) {
+					charge = true
+				}
+			}
 		}
-		eaLow = math.Min(math.Max(lnRatio(0, 1), 0), 100e3)
-		eaHigh = math.Min(math.Max(lnRatio(n-2, n-1), 0), 100e3)
+		if !charge {
+			continue
+		}
+		rows := levelRows(func(l Level) float64 {
+			if j < len(l.I0) && !math.IsInf(l.I0[j].Value, 1) {
+				return math.Log(l.I0[j].Value)
+			}
+			return math.Log(32 * math.Max(l.PulseAmps, 1e-3))
+		})
+		for _, r := range rows {
+			for k := range r {
+				r[k] = math.Exp(r[k])
+			}
+		}
+		i0Vals[j] = rows
 	}
-	if eaLow > 0 || eaHigh > 0 {
+	// eaLow[i], eaHigh[i]: activation energies of resistance table i (R0, R1, …).
+	eaLow := make([]float64, len(resVals))
+	eaHigh := make([]float64, len(resVals))
+	anyEa := false
+	for i, rv := range resVals {
+		eaLow[i], eaHigh[i] = ea, ea
+		if n := len(ptemps); n >= 2 {
+			lnRatio := func(a, b int) float64 {
+				return cell.GasConstant * (meanLog(rv[a]) - meanLog(rv[b])) / (1/ptemps[a] - 1/ptemps[b])
+			}
+			eaLow[i] = math.Min(math.Max(lnRatio(0, 1), 0), 100e3)
+			eaHigh[i] = math.Min(math.Max(lnRatio(n-2, n-1), 0), 100e3)
+		}
+		anyEa = anyEa || eaLow[i] > 0 || eaHigh[i] > 0
+	}
+	if anyEa {
 		var lowT, highT []float64
 		for _, d := range []float64{20, 10} {
-			if t := ptemps[0] - d; t > 213.15 && eaLow > 0 {
+			if t := ptemps[0] - d; t > 213.15 {
 				lowT = append(lowT, t)
 			}
 		}
 		for _, d := range []float64{10, 20} {
-			if t := ptemps[len(ptemps)-1] + d; t < 373.15 && eaHigh > 0 {
+			if t := ptemps[len(ptemps)-1] + d; t < 373.15 {
 				highT = append(highT, t)
 			}
 		}
-		extend := func(vals [][]float64, resistance bool) [][]float64 {
+		// power 1 scales like a resistance, 0 holds the value (capacitances), −1 scales
+		// inversely (exchange currents: i₀ is a rate, RT/(F·i₀) a resistance).
+		extend := func(vals [][]float64, power, eaLo, eaHi float64) [][]float64 {
 			var out [][]float64
 			for _, t := range lowT {
-				f := 1.0
-				if resistance {
-					f = math.Exp(eaLow / cell.GasConstant * (1/t - 1/ptemps[0]))
-				}
+				f := math.Exp(power * eaLo / cell.GasConstant * (1/t - 1/ptemps[0]))
 				out = append(out, scaled(vals[0], f))
 			}
 			out = append(out, vals...)
 			top := vals[len(vals)-1]
 			for _, t := range highT {
-				f := 1.0
-				if resistance {
-					f = math.Exp(eaHigh / cell.GasConstant * (1/t - 1/ptemps[len(ptemps)-1]))
-				}
+				f := math.Exp(power * eaHi / cell.GasConstant * (1/t - 1/ptemps[len(ptemps)-1]))
 				out = append(out, scaled(top, f))
 			}
 			return out
 		}
+		// An exchange current scales as the inverse of its branch's resistance.
+		for j := range i0Vals {
+			if i0Vals[j] != nil {
+				i0Vals[j] = extend(i0Vals[j], -1, eaLow[1+j], eaHigh[1+j])
+			}
+		}
 		for i := range resVals {
-			resVals[i] = extend(resVals[i], true)
+			resVals[i] = extend(resVals[i], 1, eaLow[i], eaHigh[i])
 		}
 		for i := range capVals {
-			capVals[i] = extend(capVals[i], false)
+			capVals[i] = extend(capVals[i], 0, 0, 0)
 		}
 		ptemps = append(append(lowT, ptemps...), highT...)
-		notes = append(notes, fmt.Sprintf("resistances extended beyond the tested temperatures by the Arrhenius law: %.0f kJ/mol below, %.0f kJ/mol above (%s)",
-			eaLow/1e3, eaHigh/1e3, eaSource(len(gs), ea)))
+		var parts []string
+		for i := range resVals {
+			name := "R0"
+			if i > 0 {
+				name = fmt.Sprintf("R%d", i)
+			}
+			parts = append(parts, fmt.Sprintf("%s %.0f/%.0f", name, eaLow[i]/1e3, eaHigh[i]/1e3))
+		}
+		notes = append(notes, fmt.Sprintf("resistances extended beyond the tested temperatures by the Arrhenius law, kJ/mol below/above: %s (%s)",
+			strings.Join(parts, ", "), eaSource(len(gs), ea)))
 	}
 	param := func(vals [][]float64) (*table.Surface, error) {
 		return table.NewSurface(grid, ptemps, vals)
@@ -387,6 +440,13 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		}
 		if b.C.Table, err = param(capVals[j]); err != nil {
 			return nil, nil, fmt.Errorf("fit: C%d table: %w", j+1, err)
+		}
+		if i0Vals[j] != nil {
+			t, err := param(i0Vals[j])
+			if err != nil {
+				return nil, nil, fmt.Errorf("fit: exchange current %d table: %w", j+1, err)
+			}
+			b.ExchangeCurrent = &cell.Param{Table: t}
 		}
 		typ.Branches = append(typ.Branches, b)
 	}

@@ -80,6 +80,12 @@ type Level struct {
 	R0Step float64
 	R0     Interval   // series resistance, Ω
 	R, Tau []Interval // branch resistances (Ω) and time constants (s), fastest first
+	// I0 is the exchange current (A) of each branch when it was fitted as a
+	// charge-transfer branch ([cell.Branch]); Value is +Inf for an ohmic branch.
+	I0 []Interval
+	// PulseAmps is the largest pulse current magnitude of the level, A, and Magnitudes
+	// the ratio of the largest to the smallest (1 when all pulses share one magnitude).
+	PulseAmps, Magnitudes float64
 	// Samples is the number of residuals; RMSE and Max are the fit's voltage error, V.
 	Samples   int
 	RMSE, Max float64
@@ -140,8 +146,18 @@ type pulseModel struct {
 	ocvd    []float64 // OCV(z[k]) for the samples of the windows (others unset)
 }
 
-// residuals writes v̂ − v for the parameters r0, rs, taus into dst.
-func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
+// drive returns the effective branch current for cell current i and i2 = 2·i₀ (see
+// [cell.Branch]); i2 = +Inf (or 0) means an ohmic branch.
+func drive(i, i2 float64) float64 {
+	if i2 > 0 && !math.IsInf(i2, 1) {
+		return i2 * math.Asinh(i/i2)
+	}
+	return i
+}
+
+// residuals writes v̂ − v for the parameters r0, rs, taus into dst; i2s holds 2·i₀ of
+// each branch (+Inf for an ohmic branch).
+func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus, i2s []float64) {
 	rec := m.rec
 	var vb, av [2]float64
 	lastDt := math.NaN()
@@ -162,7 +178,7 @@ func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
 			v := base + m.ocvd[k] - r0*i
 			for j := range rs {
 				a := av[j]
-				vb[j] = a*vb[j] + rs[j]*(1-a)*i
+				vb[j] = a*vb[j] + rs[j]*(1-a)*drive(i, i2s[j])
 				v -= vb[j]
 			}
 			dst[p] = v - rec.Voltage[k]
@@ -171,11 +187,11 @@ func (m *pulseModel) residuals(dst []float64, r0 float64, rs, taus []float64) {
 	}
 }
 
-// filterColumns writes the regressors of the model that is linear in (R0, R1, R2) for
-// fixed time constants: y = OCV difference − v, columns i and fⱼ (the branch filters
-// with unit resistance). It returns the SSR of the non-negative least-squares fit and
-// the resistances.
-func (m *pulseModel) linearFit(taus []float64, cols [][]float64, y []float64) (float64, []float64) {
+// linearFit writes the regressors of the model that is linear in (R0, R1, R2) for
+// fixed time constants and exchange currents: y = OCV difference − v, columns i and fⱼ
+// (the branch filters of the effective branch current with unit resistance). It
+// returns the SSR of the non-negative least-squares fit and the resistances.
+func (m *pulseModel) linearFit(taus, i2s []float64, cols [][]float64, y []float64) (float64, []float64) {
 	rec := m.rec
 	nb := len(taus)
 	p := 0
@@ -198,7 +214,7 @@ func (m *pulseModel) linearFit(taus []float64, cols [][]float64, y []float64) (f
 			cols[0][p] = i
 			for j := range nb {
 				a := av[j]
-				f[j] = a*f[j] + (1-a)*i
+				f[j] = a*f[j] + (1-a)*drive(i, i2s[j])
 				cols[j+1][p] = f[j]
 			}
 			p++
@@ -340,7 +356,18 @@ func dot(a, b []float64) float64 {
 // The time constants are found first by a grid search over pairs τ₁ < τ₂ (0.3 s to
 // 3000 s, logarithmic), each with the resistances from non-negative linear least squares
 // (the model is linear in R0 and Rⱼ for fixed τ), then refined by Levenberg–Marquardt
-// over log-parameters. Confidence intervals are ±1.96 standard errors of the
+// over log-parameters.
+//
+// Charge-transfer branch: where a level's pulses span at least a factor 2 in current
+// magnitude (the pan18650pf HPPC runs 0.5C to 6C), the fastest branch is also fitted as
+// a Butler–Volmer branch ([cell.Branch].ExchangeCurrent), with 2·i₀ tried on a grid
+// from 2× to 1/8 of the largest pulse current and then refined with the rest. It is
+// kept when it fits better than the ohmic branch and its nonlinearity is material over
+// the tested currents (2·i₀ below 4× the largest pulse current); otherwise the branch
+// stays ohmic. A single pulse magnitude cannot separate the nonlinearity from the
+// resistance, so such tests always give ohmic branches.
+//
+// Confidence intervals are ±1.96 standard errors of the
 // log-parameters from the Jacobian at the solution (s²·(JᵀJ)⁻¹); the residuals are
 // correlated in time, so they are optimistic. Rested voltages before windows that
 // followed a rest of at least OCVRest seconds are returned as OCV points.
@@ -499,7 +526,7 @@ func branchVoltsAtEnd(rec *Record, w Window, lv Level) float64 {
 		dt := rec.Time[k] - rec.Time[k-1]
 		for j := range lv.R {
 			a := math.Exp(-dt / lv.Tau[j].Value)
-			v[j] = a*v[j] + lv.R[j].Value*(1-a)*rec.Current[k]
+			v[j] = a*v[j] + lv.R[j].Value*(1-a)*drive(rec.Current[k], 2*lv.I0[j].Value)
 		}
 	}
 	return v[0] + v[1]
@@ -530,6 +557,35 @@ func longestActive(rec *Record, ws []Window, restA float64) float64 {
 		}
 	}
 	return longest
+}
+
+// pulseMagnitudes returns the largest pulse current magnitude of the windows and the
+// ratio of the largest to the smallest, where a pulse is a run of non-rest samples of
+// one sign and its magnitude the median |i| over the run.
+func pulseMagnitudes(rec *Record, ws []Window, restA float64) (imax, spread float64) {
+	lo := math.Inf(1)
+	for _, w := range ws {
+		for k := w.Start + 1; k < w.End; {
+			if math.Abs(rec.Current[k]) < restA {
+				k++
+				continue
+			}
+			j := k
+			var mags []float64
+			for j < w.End && math.Abs(rec.Current[j]) >= restA && (rec.Current[j] > 0) == (rec.Current[k] > 0) {
+				mags = append(mags, math.Abs(rec.Current[j]))
+				j++
+			}
+			m := median(mags)
+			imax = math.Max(imax, m)
+			lo = math.Min(lo, m)
+			k = j
+		}
+	}
+	if imax == 0 {
+		return 0, 1
+	}
+	return imax, imax / lo
 }
 
 func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIter int, restA float64) (Level, error) {
@@ -582,9 +638,19 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 		cols[j] = make([]float64, m.n)
 	}
 	y := make([]float64, m.n)
-	best := math.Inf(1)
-	var bt, br []float64
+	// gridBest is the best grid point of one model class (ohmic, or charge-transfer
+	// fast branch).
+	type gridBest struct {
+		ssr      float64
+		taus, rs []float64
+		i2       float64 // 2·i₀ of the fast branch, +Inf for ohmic
+	}
+	bestOhmic, bestCT := gridBest{ssr: math.Inf(1)}, gridBest{ssr: math.Inf(1)}
 	taus := make([]float64, nb)
+	i2s := make([]float64, nb) // 2·i₀ per branch, +Inf = ohmic
+	for j := range i2s {
+		i2s[j] = math.Inf(1)
+	}
 	var grid []float64
 	for _, g := range tauGrid {
 		if g >= tauMin*1.01 && g <= tauMax/1.01 {
@@ -594,9 +660,13 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 	var try func(j, from int)
 	try = func(j, from int) {
 		if j == nb {
-			ssr, r := m.linearFit(taus, cols, y)
-			if r != nil && ssr < best {
-				best, bt, br = ssr, append([]float64(nil), taus...), r
+			ssr, r := m.linearFit(taus, i2s, cols, y)
+			b := &bestOhmic
+			if !math.IsInf(i2s[0], 1) {
+				b = &bestCT
+			}
+			if r != nil && ssr < b.ssr {
+				*b = gridBest{ssr, append([]float64(nil), taus...), r, i2s[0]}
 			}
 			return
 		}
@@ -605,42 +675,84 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 			try(j+1, g+2) // τ₂ at least ~3× τ₁
 		}
 	}
+	// The fastest branch may be a charge-transfer branch (Butler–Volmer, see
+	// cell.Branch) when the level's pulses span at least a factor 2 in current
+	// magnitude: with a single magnitude the nonlinearity only rescales the resistance
+	// and cannot be identified. The grid tries 2·i₀ from 2× down to 1/8 of the largest
+	// pulse current.
+	imax, spread := pulseMagnitudes(rec, ws, m.rest)
+	lv.PulseAmps, lv.Magnitudes = imax, spread
 	try(0, 0)
-	if bt == nil {
+	if bestOhmic.taus == nil {
 		return lv, fmt.Errorf("%w: no admissible starting point for the RC fit", ErrData)
+	}
+	if spread >= 2 {
+		for _, f := range []float64{2, 1, 0.5, 0.25, 0.125} {
+			i2s[0] = f * imax
+			try(0, 0)
+		}
 	}
 	// Parameters: ln R0, then per branch ln Rⱼ and uⱼ with
 	// ln τⱼ = ln τmin + (ln τmax − ln τmin)·σ(uⱼ), σ the logistic function, which keeps
-	// τ inside its bounds. A resistance the linear fit put at zero starts small.
+	// τ inside its bounds, and for a charge-transfer first branch w with
+	// ln 2i₀ = ln(imax/64) + ln(64²)·σ(w). A resistance the linear fit put at zero
+	// starts small.
 	la, lb := math.Log(tauMin), math.Log(tauMax)
-	tauOf := func(u float64) float64 { return math.Exp(la + (lb-la)/(1+math.Exp(-u))) }
-	uOf := func(tau float64) float64 {
-		f := (math.Log(tau) - la) / (lb - la)
+	logistic := func(u float64) float64 { return 1 / (1 + math.Exp(-u)) }
+	logit := func(f float64) float64 {
 		f = math.Min(math.Max(f, 1e-6), 1-1e-6)
 		return math.Log(f / (1 - f))
 	}
-	floor := 1e-4 * math.Max(br[0], 1e-6)
-	x0 := []float64{math.Log(math.Max(br[0], floor))}
-	for j := range nb {
-		x0 = append(x0, math.Log(math.Max(br[j+1], floor)), uOf(bt[j]))
-	}
+	tauOf := func(u float64) float64 { return math.Exp(la + (lb-la)*logistic(u)) }
+	uOf := func(tau float64) float64 { return logit((math.Log(tau) - la) / (lb - la)) }
+	ia, ib := math.Log(imax/64), math.Log(imax*64)
+	i2Of := func(w float64) float64 { return math.Exp(ia + (ib-ia)*logistic(w)) }
 	rs := make([]float64, nb)
 	ts := make([]float64, nb)
-	unpack := func(x []float64) float64 {
-		for j := range nb {
-			rs[j] = math.Exp(x[1+2*j])
-			ts[j] = tauOf(x[2+2*j])
-		}
-		return math.Exp(x[0])
+	type solved struct {
+		sol       lmResult
+		pr        lsq
+		nonlinear bool
 	}
-	pr := lsq{n: m.n, p: len(x0), resid: func(dst, x []float64) {
-		r0 := unpack(x)
-		m.residuals(dst, r0, rs, ts)
-	}}
-	sol, err := levenbergMarquardt(pr, x0, maxIter)
+	solve := func(g gridBest) (solved, error) {
+		nonlinear := !math.IsInf(g.i2, 1)
+		floor := 1e-4 * math.Max(g.rs[0], 1e-6)
+		x0 := []float64{math.Log(math.Max(g.rs[0], floor))}
+		for j := range nb {
+			x0 = append(x0, math.Log(math.Max(g.rs[j+1], floor)), uOf(g.taus[j]))
+		}
+		if nonlinear {
+			x0 = append(x0, logit((math.Log(g.i2)-ia)/(ib-ia)))
+		}
+		pr := lsq{n: m.n, p: len(x0), resid: func(dst, x []float64) {
+			for j := range nb {
+				rs[j] = math.Exp(x[1+2*j])
+				ts[j] = tauOf(x[2+2*j])
+			}
+			i2s[0] = math.Inf(1)
+			if nonlinear {
+				i2s[0] = i2Of(x[1+2*nb])
+			}
+			m.residuals(dst, math.Exp(x[0]), rs, ts, i2s)
+		}}
+		sol, err := levenbergMarquardt(pr, x0, maxIter)
+		return solved{sol, pr, nonlinear}, err
+	}
+	best, err := solve(bestOhmic)
 	if err != nil {
 		return lv, err
 	}
+	// The charge-transfer branch is kept when it fits better and its nonlinearity is
+	// material over the tested currents: 2·i₀ below 4× the largest pulse current, where
+	// u(i) departs from i by more than 1 % (asinh(¼)·4 ≈ 0.99). Above that the data
+	// cannot tell it from an ohmic branch.
+	if bestCT.taus != nil {
+		ct, err := solve(bestCT)
+		if err == nil && ct.sol.SSR < best.sol.SSR && i2Of(ct.sol.X[1+2*nb]) < 4*imax {
+			best = ct
+		}
+	}
+	sol, pr, nonlinear := best.sol, best.pr, best.nonlinear
 	x := sol.X
 	p := len(x)
 	iv := func(idx int, f func(float64) float64) Interval {
@@ -652,15 +764,21 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 		return Interval{v, f(x[idx] - 1.96*sd), f(x[idx] + 1.96*sd)}
 	}
 	lv.R0 = iv(0, math.Exp)
-	type br2 struct{ r, t Interval }
+	type br2 struct{ r, t, i0 Interval }
 	var bs []br2
+	ohmic := Interval{math.Inf(1), math.NaN(), math.NaN()}
 	for j := range nb {
-		bs = append(bs, br2{iv(1+2*j, math.Exp), iv(2+2*j, tauOf)})
+		b := br2{iv(1+2*j, math.Exp), iv(2+2*j, tauOf), ohmic}
+		if j == 0 && nonlinear {
+			b.i0 = iv(1+2*nb, func(w float64) float64 { return i2Of(w) / 2 })
+		}
+		bs = append(bs, b)
 	}
 	sort.Slice(bs, func(a, b int) bool { return bs[a].t.Value < bs[b].t.Value })
 	for _, b := range bs {
 		lv.R = append(lv.R, b.r)
 		lv.Tau = append(lv.Tau, b.t)
+		lv.I0 = append(lv.I0, b.i0)
 	}
 	lv.TauMax = tauMax
 	resid := make([]float64, m.n)

@@ -79,6 +79,7 @@ func Refine(ctx context.Context, t *cell.Type, recs []Record, settings *RefineSe
 		nt.R0.Table = scaleSurface(t.R0.Table, factor(x[0]))
 		nt.Branches = make([]cell.Branch, len(t.Branches))
 		for j, b := range t.Branches {
+			nt.Branches[j].ExchangeCurrent = b.ExchangeCurrent
 			nt.Branches[j].R.Table = scaleSurface(b.R.Table, factor(x[1+2*j]))
 			nt.Branches[j].C.Table = scaleSurface(b.C.Table, factor(x[2+2*j]))
 		}

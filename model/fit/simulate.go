@@ -50,7 +50,8 @@ func Simulate(dst []float64, t *cell.Type, rec Record, z0 float64, settings *Sim
 			b := &t.Branches[j]
 			r := b.R.At(prev.SOC, tk)
 			tau := r * b.C.At(prev.SOC, tk)
-			vss := r * i
+			u, _ := b.Drive(i, prev.SOC, tk)
+			vss := r * u
 			// Mean over the interval of vss + (v0 − vss)·exp(−s/τ).
 			v -= vss + (prev.V[j]-vss)*tau/dt*(-math.Expm1(-dt/tau))
 		}

@@ -1,0 +1,125 @@
+package fit
+
+import (
+	"context"
+	"math"
+	"testing"
+
+	"github.com/voltcast/voltcast/model/cell"
+)
+
+const trueI0 = 1.0 // A, exchange current of the synthetic charge-transfer branch
+
+// transferType is the synthetic cell with its fast branch a charge-transfer branch
+// (cell.Branch.ExchangeCurrent).
+func transferType(t testing.TB) *cell.Type {
+	t.Helper()
+	typ := syntheticType(t)
+	typ.Branches[0].ExchangeCurrent = &cell.Param{Value: trueI0}
+	if err := typ.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	return typ
+}
+
+// multiPulse is a pulse test like the pan18650pf HPPC (PROVENANCE.md): at each level,
+// 10 s discharge pulses at 0.5C, 1C, 2C and 4C, each followed by a 5 min rest, then 10 %
+// of capacity at 1C and a 30 min rest.
+func multiPulse(typ *cell.Type, nLevels int) Record {
+	r := newRecorder(typ, 1, 0.1)
+	r.hold(0, 600)
+	for range nLevels {
+		for _, c := range []float64{0.5, 1, 2, 4} {
+			r.hold(c*trueQ, 10)
+			r.hold(0, 300)
+		}
+		r.hold(trueQ, 360)
+		r.hold(0, 1800)
+	}
+	r.rec.Name = "synthetic-multipulse"
+	return r.rec
+}
+
+// TestPulsesRecoverChargeTransfer: pulses of four magnitudes identify the exchange
+// current of the fast branch together with the other parameters (issue 3: recovery of
+// known parameters from synthetic pulse data within 2 %).
+func TestPulsesRecoverChargeTransfer(t *testing.T) {
+	typ := transferType(t)
+	res, err := Pulses(context.Background(), multiPulse(typ, 5), typ.OCV.Curve(0), trueQ, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(res.Levels) != 5 {
+		t.Fatalf("%d levels; want 5", len(res.Levels))
+	}
+	for _, l := range res.Levels {
+		if l.Magnitudes < 7.9 {
+			t.Errorf("level %.2f: magnitude spread %.2f; want 8", l.SOC, l.Magnitudes)
+		}
+		for _, c := range []struct {
+			name      string
+			got, want float64
+		}{
+			{"R0", l.R0.Value, trueR0}, {"R1", l.R[0].Value, trueR1}, {"tau1", l.Tau[0].Value, trueTau1},
+			{"i0", l.I0[0].Value, trueI0}, {"R2", l.R[1].Value, trueR2}, {"tau2", l.Tau[1].Value, trueTau2},
+		} {
+			if math.Abs(c.got/c.want-1) > 0.02 {
+				t.Errorf("level SOC %.2f: %s = %.5g; want %.5g within 2 %%", l.SOC, c.name, c.got, c.want)
+			}
+		}
+		if !math.IsInf(l.I0[1].Value, 1) {
+			t.Errorf("level SOC %.2f: slow branch fitted with i0 = %g; want ohmic", l.SOC, l.I0[1].Value)
+		}
+	}
+}
+
+// TestPulsesOneMagnitudeStaysOhmic: with one pulse magnitude per direction within a
+// factor 2 (the synthetic HPPC: 2C discharge, 1.5C charge) the nonlinearity cannot be
+// told from the resistance, so every branch stays ohmic and Fit writes no exchange
+// current into the type.
+func TestPulsesOneMagnitudeStaysOhmic(t *testing.T) {
+	typ := syntheticType(t)
+	p := &Problem{OCVTest: lowRate(typ), PulseTests: []Record{hppc(typ, 1, 6)}}
+	res, err := Fit(context.Background(), p, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, l := range res.Pulses[0].Levels {
+		for j, x := range l.I0 {
+			if !math.IsInf(x.Value, 1) {
+				t.Errorf("level SOC %.2f: branch %d fitted with i0 = %g; want ohmic", l.SOC, j+1, x.Value)
+			}
+		}
+	}
+	for j, b := range res.Type.Branches {
+		if b.ExchangeCurrent != nil {
+			t.Errorf("branch %d has an exchange current; want none", j+1)
+		}
+	}
+}
+
+// TestFitChargeTransferType: Fit carries the identified exchange current into the
+// type, and the type reproduces the pulse test.
+func TestFitChargeTransferType(t *testing.T) {
+	typ := transferType(t)
+	p := &Problem{OCVTest: lowRate(typ), PulseTests: []Record{multiPulse(typ, 5)}}
+	res, err := Fit(context.Background(), p, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x := res.Type.Branches[0].ExchangeCurrent
+	if x == nil {
+		t.Fatal("fast branch has no exchange current")
+	}
+	if got := x.At(0.6, 298.15); math.Abs(got/trueI0-1) > 0.02 {
+		t.Errorf("fitted i0 at SOC 0.6 = %.4g A; want %.4g within 2 %%", got, trueI0)
+	}
+	if res.Type.Branches[1].ExchangeCurrent != nil {
+		t.Errorf("slow branch has an exchange current; want ohmic")
+	}
+	for _, f := range res.Report.Files {
+		if f.Role == "pulse" && f.RMSE > 1e-3 {
+			t.Errorf("%s: pulse-window RMSE %.2f mV on noise-free data", f.Name, f.RMSE*1e3)
+		}
+	}
+}
