@@ -95,6 +95,7 @@ func openStore(ctx context.Context, cfg Config) (store.Store, error) {
 // serve runs the listeners until ctx ends, then shuts down. The order matters and is
 // fixed here (STYLE.md §4):
 //
+//  0. stop the demo replay (--demo), which calls this server like any client;
 //  1. health NOT_SERVING, so load balancers stop sending new work;
 //  2. http.Server.Shutdown with the deadline: the gateway stops taking requests and
 //     finishes those in flight (they still need the gRPC server);
@@ -170,8 +171,11 @@ func serve(ctx context.Context, cfg Config, log *slog.Logger, tel *telemetry, st
 		httpAddr = httpLis.Addr().String()
 	}
 	log.Info("serving", "grpc_address", grpcLis.Addr().String(), "http_address", httpAddr)
+	demoCtx, stopDemo := context.WithCancel(ctx)
+	defer stopDemo()
+	var demoDone sync.WaitGroup
 	if cfg.Demo {
-		log.Warn("--demo: the demo fleet is not available in this build yet; serving an empty store")
+		demoDone.Go(func() { runDemo(demoCtx, log, grpcLis.Addr().String(), httpAddr) })
 	}
 	if ready != nil {
 		ready(grpcLis.Addr().String(), httpAddr)
@@ -185,6 +189,8 @@ func serve(ctx context.Context, cfg Config, log *slog.Logger, tel *telemetry, st
 		log.Error("server failed; shutting down", "error", serveErr.Error())
 	}
 
+	stopDemo() // 0. the demo replay, a client of this server, stops first
+	demoDone.Wait()
 	// The shutdown order is documented above; keep the two in step.
 	sctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), cfg.ShutdownTimeout)
 	defer cancel()
