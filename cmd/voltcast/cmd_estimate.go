@@ -27,8 +27,9 @@ func init() {
 // estimateUsage is the first line of voltcast estimate -h.
 const estimateUsage = "usage: voltcast estimate --type TYPE --in LOG.csv --out EST.csv [--initial-soc X] [--temperature-celsius T] [--current-sign charge-positive] [--series S --parallel P] [--health] [--estimator ekf|coulomb-counter]"
 
-// progressRows is the file size from which estimate reports progress on stderr.
-const progressRows = 200_000
+// progressRows is the file size from which estimate reports progress on stderr (a
+// variable so that a test can lower it).
+var progressRows = 200_000
 
 func runEstimate(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlagSet("estimate", stderr)

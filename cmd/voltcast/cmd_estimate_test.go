@@ -114,6 +114,16 @@ func TestEstimateCommand(t *testing.T) {
 	if !strings.Contains(stdout, "from the rested voltage") || !strings.Contains(stdout, "rows written") {
 		t.Errorf("summary lacks the start and the row count:\n%s", stdout)
 	}
+	if strings.Contains(stderr, "%") {
+		t.Errorf("progress shown for a short log: %s", stderr)
+	}
+
+	// A long log shows its progress on stderr.
+	defer func(n int) { progressRows = n }(progressRows)
+	progressRows = 100
+	if code, _, stderr = runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out); code != 0 || !strings.Contains(stderr, "estimate: 50% (") {
+		t.Errorf("no progress on stderr for a long log (exit %d): %s", code, stderr)
+	}
 
 	// The baseline with a given start, and the health columns.
 	code, _, stderr = runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out,

@@ -47,7 +47,10 @@
 // # Noise model
 //
 // The measurement noise is the voltage sensor's noise plus the model's error, scaled to
-// the pack. Model error is not white: it follows the operating point and stays
+// the pack. The model error has a floor ([Settings.ModelSigma]) and a part that grows
+// with the load ([Settings.ParameterError] times the ohmic and polarisation drop),
+// because an equivalent circuit identified at one current errs at others. It is not
+// white: it follows the operating point and stays
 // correlated for minutes, so the model part is scaled by ModelCorrelationTime/Δt for
 // samples closer than that ([Settings.ModelCorrelationTime]); without this a filter fed
 // at 1 Hz would treat one slowly varying model error as thousands of independent
@@ -62,7 +65,10 @@
 //
 // # Robustness
 //
-// The covariance update uses the Joseph form, is symmetrised after every step and is
+// A measurement that would move the SOC by more than 0.01 is applied by the iterated
+// extended Kalman filter (Gauss–Newton relinearisation), so a first rested voltage far
+// from the prior on a curved OCV is met without overshoot. The covariance update uses
+// the Joseph form, is symmetrised after every step and is
 // checked for positive definiteness by a Cholesky factorisation; a failing covariance is
 // repaired and the sample flagged. A measurement whose normalised innovation squared
 // exceeds a chi-square gate is rejected as an outlier (the prediction is kept, the

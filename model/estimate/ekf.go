@@ -264,20 +264,22 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 // factor), η the coulombic efficiency and ρ the resistance factor, Step computes
 //
 //	z⁺ = z − η·ic·Δt/q
-//	vₖ⁺ = aₖ·vₖ + ρRₖ·(1−aₖ)·ic,  aₖ = exp(−gₖ), gₖ = Δt/(ρRₖCₖ), Rₖ, Cₖ at (z, T)
+//	vₖ⁺ = aₖ·vₖ + ρRₖ·(1−aₖ)·uₖ,  aₖ = exp(−gₖ), gₖ = Δt/(ρRₖCₖ), Rₖ, Cₖ at (z, T)
 //	h⁺ = b·h + (1−b)·m,  b = exp(−κ|ic|), κ = ηγΔt/q, m = −M·sign(ic)
 //
-// so, with uₖ = vₖ − ρRₖ·ic, the non-zero Jacobian entries are
+// with uₖ = ic for an ohmic branch and the Butler–Volmer effective current of a
+// charge-transfer branch (cell.Branch.Drive). With wₖ = vₖ − ρRₖ·uₖ the non-zero
+// Jacobian entries are
 //
 //	∂z⁺/∂z = 1,  ∂z⁺/∂c = η·ic·Δt/(q·c)
 //	∂vₖ⁺/∂vₖ = aₖ
-//	∂vₖ⁺/∂z = (aₖgₖuₖ/Rₖ + ρ(1−aₖ)ic)·dRₖ/dz + (aₖgₖuₖ/Cₖ)·dCₖ/dz
-//	∂vₖ⁺/∂ρ = aₖgₖuₖ/ρ + Rₖ(1−aₖ)·ic
+//	∂vₖ⁺/∂z = (aₖgₖwₖ/Rₖ + ρ(1−aₖ)uₖ)·dRₖ/dz + (aₖgₖwₖ/Cₖ)·dCₖ/dz + ρRₖ(1−aₖ)·∂uₖ/∂z
+//	∂vₖ⁺/∂ρ = aₖgₖwₖ/ρ + Rₖ(1−aₖ)·uₖ
 //	∂h⁺/∂h = b,  ∂h⁺/∂c = b·κ|ic|/c·(h − m)
 //
 // and the input column, for the current-sensor noise, is ∂z⁺/∂i = −η·Δt/(q·P),
-// ∂vₖ⁺/∂i = ρRₖ(1−aₖ)/P, ∂h⁺/∂i = −κ·sign(ic)·b·(h − m)/P for a pack of P cells in
-// parallel.
+// ∂vₖ⁺/∂i = ρRₖ(1−aₖ)·(∂uₖ/∂ic)/P, ∂h⁺/∂i = −κ·sign(ic)·b·(h − m)/P for a pack of P
+// cells in parallel.
 func (f *EKF) predict(sg segment) {
 	if sg.dt <= 0 {
 		return
@@ -340,16 +342,22 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 		g := dt / (rr * c)
 		ak := math.Exp(-g)
 		v := f.x[1+k]
-		xn[1+k] = ak*v + rr*(1-ak)*ic // Step: a*s.V[k] + r*(1-a)*ic
-		u := v - rr*ic
+		u, dudi, dudz := ic, 1.0, 0.0
+		if br.ExchangeCurrent != nil {
+			u, dudi = br.Drive(ic, z, tk) // as Step
+			dudz = driveSOCDeriv(br, ic, z, tk)
+		}
+		xn[1+k] = ak*v + rr*(1-ak)*u // Step: a*s.V[k] + r*(1-a)*u
+		w := v - rr*u
 		a.d[1+k] = ak
-		if dr, dc := br.R.SOCDeriv(z, tk), br.C.SOCDeriv(z, tk); dr != 0 || dc != 0 {
-			a.set(1+k, 0, (ak*g*u/r+rf*(1-ak)*ic)*dr+ak*g*u/c*dc)
+		dr, dc := br.R.SOCDeriv(z, tk), br.C.SOCDeriv(z, tk)
+		if dr != 0 || dc != 0 || dudz != 0 {
+			a.set(1+k, 0, (ak*g*w/r+rf*(1-ak)*u)*dr+ak*g*w/c*dc+rr*(1-ak)*dudz)
 		}
 		if l.ir >= 0 {
-			a.set(1+k, l.ir, ak*g*u/rf+r*(1-ak)*ic)
+			a.set(1+k, l.ir, ak*g*w/rf+r*(1-ak)*u)
 		}
-		b[1+k] = rr * (1 - ak) / par
+		b[1+k] = rr * (1 - ak) * dudi / par
 	}
 	if l.ih >= 0 {
 		h := f.x[l.ih]
@@ -371,6 +379,22 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 		}
 	}
 	return xn, dz
+}
+
+// driveSOCDeriv returns ∂u/∂z for a charge-transfer branch, whose effective current
+// u = i₂·asinh(ic/i₂) (i₂ = 2·i₀, cell.Branch.Drive) depends on the SOC through a
+// tabulated exchange current: ∂u/∂i₂ = asinh(x) − x/√(1 + x²) with x = ic/i₂.
+func driveSOCDeriv(br *cell.Branch, ic, z, tk float64) float64 {
+	d := br.ExchangeCurrent.SOCDeriv(z, tk)
+	if d == 0 {
+		return 0
+	}
+	i2 := 2 * br.ExchangeCurrent.At(z, tk)
+	if !(i2 > 0) {
+		return 0
+	}
+	x := ic / i2
+	return (math.Asinh(x) - x/math.Sqrt(1+x*x)) * 2 * d
 }
 
 // measurement returns the modelled pack voltage at the mean for pack current i and

@@ -11,14 +11,26 @@ import (
 // TestPredictionMatchesStep holds the filter's prediction to cell.Pack.Step, the
 // simulator's discretisation: for random states, currents (both signs), step lengths
 // from 10 ms to 10 h, temperatures, pack shapes, health factors and with and without
-// hysteresis, the predicted mean must equal Step's result to rounding, and the
-// Jacobian must match central finite differences of Step.
+// hysteresis, and with ohmic and charge-transfer branches, the predicted mean must
+// equal Step's result exactly, and the Jacobian and input column must match central
+// finite differences of Step.
 func TestPredictionMatchesStep(t *testing.T) {
 	rng := rand.New(rand.NewPCG(13, 14))
 	for trial := range 400 {
 		ty := *testType(t)
 		if trial%2 == 1 {
 			ty.Hysteresis = cell.Hysteresis{Max: 0.02, Gamma: 5}
+		}
+		if trial%3 == 0 {
+			// A charge-transfer (Butler–Volmer) first branch, its exchange current
+			// tabulated over SOC so that ∂u/∂z matters.
+			br := append([]cell.Branch(nil), ty.Branches...)
+			i0 := cell.Param{Table: mustSurface(t, []float64{0, 0.5, 1}, []float64{cell.Kelvin(25)}, [][]float64{{0.5, 1.5, 1.0}})}
+			br[0].ExchangeCurrent = &i0
+			ty.Branches = br
+			if err := ty.Validate(); err != nil {
+				t.Fatal(err)
+			}
 		}
 		pack, err := cell.NewPack(&ty, 1+rng.IntN(4), 1+rng.IntN(3))
 		if err != nil {
