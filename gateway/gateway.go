@@ -24,6 +24,21 @@
 // {"code": <gRPC code>, "message": ..., "details": [...]} holding the google.rpc error
 // details (ErrorInfo, BadRequest, ...) with their "@type". A request body over the
 // configured limit is 413 with the same body shape.
+//
+// Errors the gateway raises itself (a body that is not valid JSON or names an unknown
+// field, a malformed query parameter, an unknown path, an unreachable gRPC server)
+// get the same details as the service's: always a google.rpc.ErrorInfo (domain
+// voltcast.dev; reason INVALID_JSON for the body, INVALID_FIELD for a query or path
+// parameter, UNKNOWN_PATH, METHOD_NOT_ALLOWED, or the gRPC code's name), and for
+// INVALID_ARGUMENT a google.rpc.BadRequest naming the field (the JSON or query field
+// name when it is known, else "body"). protojson's messages are normalised (it
+// randomises their spaces on purpose), so the bodies are stable.
+//
+// # Health
+//
+// GET /healthz is readiness: it calls the gRPC health service, which pings the store
+// (cached for a second). GET /livez is liveness: 200 whenever the process serves HTTP,
+// touching nothing.
 package gateway
 
 import (
@@ -32,6 +47,8 @@ import (
 	"errors"
 	"fmt"
 	"net/http"
+	"regexp"
+	"strings"
 
 	"github.com/grpc-ecosystem/grpc-gateway/v2/runtime"
 	"go.opentelemetry.io/contrib/instrumentation/google.golang.org/grpc/otelgrpc"
@@ -45,6 +62,7 @@ import (
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/encoding/protojson"
+	"google.golang.org/protobuf/protoadapt"
 
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 )
@@ -132,6 +150,7 @@ func New(ctx context.Context, opts Options) (*Gateway, error) {
 	}
 	root := http.NewServeMux()
 	root.HandleFunc("GET /openapi.json", serveOpenAPI)
+	root.HandleFunc("GET /livez", serveLive)
 	for pattern, h := range opts.Routes {
 		root.Handle(pattern, h)
 	}
@@ -159,8 +178,93 @@ func NewServeMux(hc healthpb.HealthClient) *runtime.ServeMux {
 			UnmarshalOptions: UnmarshalOptions,
 		}),
 		runtime.WithHealthzEndpoint(hc),
-		runtime.WithErrorHandler(runtime.DefaultHTTPErrorHandler),
+		runtime.WithErrorHandler(errorHandler),
+		runtime.WithRoutingErrorHandler(routingErrorHandler),
 	)
+}
+
+// Patterns of the errors grpc-gateway raises while reading a request.
+var (
+	reUnknownField = regexp.MustCompile(`unknown field "([^"]+)"`)
+	reParseField   = regexp.MustCompile(`^(?:parsing (?:field|list|map key|map value)|too many values for field|duplicate field|field already set for oneof) "?([^":]+)"?`)
+	reTypeMismatch = regexp.MustCompile(`type mismatch, parameter: ([^,]+)`)
+)
+
+// errorHandler writes every error with the service's detail conventions; see the
+// package doc. Statuses that already carry an ErrorInfo (all the service's) pass
+// unchanged.
+func errorHandler(ctx context.Context, mux *runtime.ServeMux, m runtime.Marshaler, w http.ResponseWriter, r *http.Request, err error) {
+	st := status.Convert(err)
+	for _, d := range st.Details() {
+		if _, ok := d.(*errdetails.ErrorInfo); ok {
+			runtime.DefaultHTTPErrorHandler(ctx, mux, m, w, r, err)
+			return
+		}
+	}
+	msg := strings.ReplaceAll(st.Message(), "\u00a0", " ")
+	if strings.Contains(msg, "http: request body too large") {
+		st := status.New(codes.InvalidArgument, "request body exceeds the limit")
+		if d, err := st.WithDetails(&errdetails.ErrorInfo{Domain: errorDomain, Reason: "REQUEST_TOO_LARGE"}); err == nil {
+			st = d
+		}
+		writeStatus(w, http.StatusRequestEntityTooLarge, st)
+		return
+	}
+	reason := st.Code().String()
+	details := []protoadapt.MessageV1{}
+	if st.Code() == codes.InvalidArgument {
+		field, reason := "body", "INVALID_JSON"
+		switch {
+		case reUnknownField.MatchString(msg):
+			field = reUnknownField.FindStringSubmatch(msg)[1]
+			msg = "unknown field (field names are the lowerCamelCase or proto names of /openapi.json)"
+		case reParseField.MatchString(msg):
+			field, reason = reParseField.FindStringSubmatch(msg)[1], "INVALID_FIELD"
+		case reTypeMismatch.MatchString(msg):
+			field, reason = strings.TrimSpace(reTypeMismatch.FindStringSubmatch(msg)[1]), "INVALID_FIELD"
+		}
+		details = append(details, &errdetails.ErrorInfo{Domain: errorDomain, Reason: reason},
+			&errdetails.BadRequest{FieldViolations: []*errdetails.BadRequest_FieldViolation{{Field: field, Description: msg}}})
+		msg = "invalid request: " + field + ": " + msg
+	} else {
+		details = append(details, &errdetails.ErrorInfo{Domain: errorDomain, Reason: upperSnake(reason)})
+	}
+	nst := status.New(st.Code(), msg)
+	if d, err := nst.WithDetails(details...); err == nil {
+		nst = d
+	}
+	runtime.DefaultHTTPErrorHandler(ctx, mux, m, w, r, nst.Err())
+}
+
+// routingErrorHandler answers requests that match no route, with an ErrorInfo.
+func routingErrorHandler(ctx context.Context, mux *runtime.ServeMux, m runtime.Marshaler, w http.ResponseWriter, r *http.Request, httpStatus int) {
+	code, reason, msg := codes.Internal, "INTERNAL", "unexpected routing error"
+	switch httpStatus {
+	case http.StatusNotFound:
+		code, reason, msg = codes.NotFound, "UNKNOWN_PATH", "no API method at "+r.Method+" "+r.URL.Path+" (see /openapi.json)"
+	case http.StatusMethodNotAllowed:
+		code, reason, msg = codes.Unimplemented, "METHOD_NOT_ALLOWED", "method "+r.Method+" not allowed on "+r.URL.Path
+	case http.StatusBadRequest:
+		code, reason, msg = codes.InvalidArgument, "INVALID_JSON", http.StatusText(httpStatus)
+	}
+	st := status.New(code, msg)
+	if d, err := st.WithDetails(&errdetails.ErrorInfo{Domain: errorDomain, Reason: reason}); err == nil {
+		st = d
+	}
+	runtime.DefaultHTTPErrorHandler(ctx, mux, m, w, r, st.Err())
+}
+
+// upperSnake turns a gRPC code's Go name ("NotFound") into its canonical name
+// ("NOT_FOUND").
+func upperSnake(s string) string {
+	var b strings.Builder
+	for i, c := range s {
+		if i > 0 && 'A' <= c && c <= 'Z' {
+			b.WriteByte('_')
+		}
+		b.WriteRune(c)
+	}
+	return strings.ToUpper(b.String())
 }
 
 // Handler returns the gateway's HTTP handler.
@@ -168,6 +272,13 @@ func (g *Gateway) Handler() http.Handler { return g.handler }
 
 // Close closes the gateway's gRPC client connection.
 func (g *Gateway) Close() error { return g.conn.Close() }
+
+// serveLive is liveness: it answers whenever the process serves HTTP and touches no
+// dependency.
+func serveLive(w http.ResponseWriter, _ *http.Request) {
+	w.Header().Set("Content-Type", "application/json")
+	w.Write([]byte(`{"status":"SERVING"}` + "\n"))
+}
 
 func serveOpenAPI(w http.ResponseWriter, _ *http.Request) {
 	w.Header().Set("Content-Type", "application/json")

@@ -65,6 +65,12 @@ func (f *fakeBatteries) CreateBattery(_ context.Context, req *pb.CreateBatteryRe
 	return &pb.CreateBatteryResponse{Battery: fixedBattery()}, nil
 }
 
+// DeleteBattery fails as a gRPC server that cannot be reached does: a bare status with
+// no details, which the gateway must complete with an ErrorInfo.
+func (f *fakeBatteries) DeleteBattery(context.Context, *pb.DeleteBatteryRequest) (*pb.DeleteBatteryResponse, error) {
+	return nil, status.Error(codes.Unavailable, "connection refused")
+}
+
 type healthy struct{}
 
 func (healthy) Check(context.Context, *healthpb.HealthCheckRequest, ...grpc.CallOption) (*healthpb.HealthCheckResponse, error) {
@@ -83,7 +89,10 @@ func newTestHandler(t *testing.T, f *fakeBatteries) http.Handler {
 	if err := pb.RegisterBatteryServiceHandlerServer(context.Background(), mux, f); err != nil {
 		t.Fatal(err)
 	}
-	return limitBody(mux, 1024)
+	root := http.NewServeMux()
+	root.HandleFunc("GET /livez", serveLive)
+	root.Handle("/", limitBody(mux, 1024))
+	return root
 }
 
 // golden compares got with testdata/name, or rewrites it with -update.
@@ -126,6 +135,11 @@ func TestJSONGolden(t *testing.T) {
 		{"unknown_field.json", "POST", "/v1/batteries?batteryId=b", `{"batteryType":"batteryTypes/x","serieCount":1}`, http.StatusBadRequest},
 		{"too_large.json", "POST", "/v1/batteries?batteryId=b", `{"displayName":"` + strings.Repeat("x", 2000) + `"}`, http.StatusRequestEntityTooLarge},
 		{"healthz.json", "GET", "/healthz", "", http.StatusOK},
+		{"livez.json", "GET", "/livez", "", http.StatusOK},
+		{"syntax_error.json", "POST", "/v1/batteries?batteryId=b", `{"batteryType":`, http.StatusBadRequest},
+		{"bad_query.json", "GET", "/v1/batteries?pageSize=many", "", http.StatusBadRequest},
+		{"unknown_path.json", "GET", "/v1/widgets", "", http.StatusNotFound},
+		{"unavailable.json", "DELETE", "/v1/batteries/bike-7", "", http.StatusServiceUnavailable},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			req := httptest.NewRequest(c.method, c.path, strings.NewReader(c.body))
