@@ -76,17 +76,9 @@ func (c *Counter) InitFromVoltage(v, tk float64) error {
 // Update processes one sample, with the same errors and flags as [EKF.Update] (it
 // never rejects a voltage, since it does not use it). It does not allocate.
 func (c *Counter) Update(s Sample) (Estimate, error) {
-	c.counters.Samples++
-	flags, err := c.cfg.check(s, &c.clk)
-	if err != nil || flags&FlagInvalid != 0 {
-		if err != nil {
-			c.counters.Errors++
-		} else {
-			c.counters.Invalid++
-		}
-		e := c.estimate(s.Time, flags)
-		e.Voltage, e.Innovation = math.NaN(), math.NaN()
-		return e, err
+	flags, ok, err := c.cfg.admit(s, &c.clk, &c.counters)
+	if !ok {
+		return unusable(c.estimate(s.Time, flags)), err
 	}
 	pl := c.cfg.plan(s, c.clk)
 	flags |= pl.flags

@@ -169,17 +169,9 @@ func (f *EKF) model() (cell.Pack, cell.State) {
 // counted and flagged FlagInvalid, likewise without changing the state. Update does not
 // allocate.
 func (f *EKF) Update(s Sample) (Estimate, error) {
-	f.counters.Samples++
-	flags, err := f.cfg.check(s, &f.clk)
-	if err != nil || flags&FlagInvalid != 0 {
-		if err != nil {
-			f.counters.Errors++
-		} else {
-			f.counters.Invalid++
-		}
-		e := f.estimate(s.Time, flags)
-		e.Voltage, e.Innovation = math.NaN(), math.NaN()
-		return e, err
+	flags, ok, err := f.cfg.admit(s, &f.clk, &f.counters)
+	if !ok {
+		return unusable(f.estimate(s.Time, flags)), err
 	}
 	prevTime := math.Inf(-1)
 	if f.clk.started {

@@ -48,6 +48,28 @@ type plan struct {
 	clk   clock // the clock after the sample
 }
 
+// admit counts sample s and classifies it with check, counting a refused or invalid
+// one; ok is false when the sample must not change the state.
+func (c *config) admit(s Sample, clk *clock, n *Counters) (flags Flags, ok bool, err error) {
+	n.Samples++
+	flags, err = c.check(s, clk)
+	switch {
+	case err != nil:
+		n.Errors++
+	case flags&FlagInvalid != 0:
+		n.Invalid++
+	default:
+		return flags, true, nil
+	}
+	return flags, false, err
+}
+
+// unusable marks an estimate of the unchanged state for a sample that was not used.
+func unusable(e Estimate) Estimate {
+	e.Voltage, e.Innovation = math.NaN(), math.NaN()
+	return e
+}
+
 // check classifies a sample: an error for a sample that must be refused, FlagInvalid
 // for one that must be ignored, 0 for a usable one.
 func (c *config) check(s Sample, clk *clock) (Flags, error) {

@@ -17,41 +17,9 @@ import (
 func TestPredictionMatchesStep(t *testing.T) {
 	rng := rand.New(rand.NewPCG(13, 14))
 	for trial := range 400 {
-		ty := *testType(t)
-		if trial%2 == 1 {
-			ty.Hysteresis = cell.Hysteresis{Max: 0.02, Gamma: 5}
-		}
-		if trial%3 == 0 {
-			// A charge-transfer (Butler–Volmer) first branch, its exchange current
-			// tabulated over SOC so that ∂u/∂z matters.
-			br := append([]cell.Branch(nil), ty.Branches...)
-			i0 := cell.Param{Table: mustSurface(t, []float64{0, 0.5, 1}, []float64{cell.Kelvin(25)}, [][]float64{{0.5, 1.5, 1.0}})}
-			br[0].ExchangeCurrent = &i0
-			ty.Branches = br
-			if err := ty.Validate(); err != nil {
-				t.Fatal(err)
-			}
-		}
-		pack, err := cell.NewPack(&ty, 1+rng.IntN(4), 1+rng.IntN(3))
-		if err != nil {
-			t.Fatal(err)
-		}
-		health := trial%4 >= 2
-		f, err := NewEKF(pack, 0.5, &Settings{Health: health})
-		if err != nil {
-			t.Fatal(err)
-		}
+		f, pack := randomFilter(t, rng, trial, 4)
 		l := f.l
-		f.x[0] = 0.05 + 0.9*rng.Float64()
-		for k := range l.nb {
-			f.x[1+k] = 0.05 * (rng.Float64() - 0.5)
-		}
-		if l.ih >= 0 {
-			f.x[l.ih] = 0.02 * (2*rng.Float64() - 1)
-		}
-		if health {
-			f.x[l.ic], f.x[l.ir] = 0.7+0.4*rng.Float64(), 0.8+1.5*rng.Float64()
-		}
+		health := l.ic >= 0
 		sg := segment{
 			i:  float64(pack.Parallel) * (6*rng.Float64() - 2),
 			dt: math.Pow(10, -2+6.5*rng.Float64()),
@@ -127,27 +95,8 @@ func TestPredictionMatchesStep(t *testing.T) {
 func TestMeasurementMatchesVoltage(t *testing.T) {
 	rng := rand.New(rand.NewPCG(15, 16))
 	for trial := range 200 {
-		ty := *testType(t)
-		if trial%2 == 1 {
-			ty.Hysteresis = cell.Hysteresis{Max: 0.02, Gamma: 5}
-		}
-		pack, _ := cell.NewPack(&ty, 1+rng.IntN(12), 1+rng.IntN(3))
-		health := trial%4 >= 2
-		f, err := NewEKF(pack, 0.5, &Settings{Health: health})
-		if err != nil {
-			t.Fatal(err)
-		}
+		f, pack := randomFilter(t, rng, trial, 12)
 		l := f.l
-		f.x[0] = 0.02 + 0.96*rng.Float64()
-		for k := range l.nb {
-			f.x[1+k] = 0.05 * (rng.Float64() - 0.5)
-		}
-		if l.ih >= 0 {
-			f.x[l.ih] = 0.02 * (2*rng.Float64() - 1)
-		}
-		if health {
-			f.x[l.ic], f.x[l.ir] = 0.7+0.4*rng.Float64(), 0.8+1.5*rng.Float64()
-		}
 		i := float64(pack.Parallel) * (6*rng.Float64() - 2)
 		tk := cell.Kelvin(-10 + 50*rng.Float64())
 		y, h, _ := f.measurement(&f.x, i, tk, false, 1)
@@ -171,4 +120,47 @@ func TestMeasurementMatchesVoltage(t *testing.T) {
 		}
 		f.x = x0
 	}
+}
+
+// randomFilter returns a filter for a variant of the test type chosen by trial (with or
+// without hysteresis, a charge-transfer first branch and health states; a random pack
+// shape up to maxSeries in series) whose state is set to random values in range.
+func randomFilter(t *testing.T, rng *rand.Rand, trial, maxSeries int) (*EKF, cell.Pack) {
+	t.Helper()
+	ty := *testType(t)
+	if trial%2 == 1 {
+		ty.Hysteresis = cell.Hysteresis{Max: 0.02, Gamma: 5}
+	}
+	if trial%3 == 0 {
+		// A charge-transfer (Butler–Volmer) first branch, its exchange current
+		// tabulated over SOC so that ∂u/∂z matters.
+		br := append([]cell.Branch(nil), ty.Branches...)
+		i0 := cell.Param{Table: mustSurface(t, []float64{0, 0.5, 1}, []float64{cell.Kelvin(25)}, [][]float64{{0.5, 1.5, 1.0}})}
+		br[0].ExchangeCurrent = &i0
+		ty.Branches = br
+		if err := ty.Validate(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	pack, err := cell.NewPack(&ty, 1+rng.IntN(maxSeries), 1+rng.IntN(3))
+	if err != nil {
+		t.Fatal(err)
+	}
+	health := trial%4 >= 2
+	f, err := NewEKF(pack, 0.5, &Settings{Health: health})
+	if err != nil {
+		t.Fatal(err)
+	}
+	l := f.l
+	f.x[0] = 0.02 + 0.96*rng.Float64()
+	for k := range l.nb {
+		f.x[1+k] = 0.05 * (rng.Float64() - 0.5)
+	}
+	if l.ih >= 0 {
+		f.x[l.ih] = 0.02 * (2*rng.Float64() - 1)
+	}
+	if health {
+		f.x[l.ic], f.x[l.ir] = 0.7+0.4*rng.Float64(), 0.8+1.5*rng.Float64()
+	}
+	return f, pack
 }
