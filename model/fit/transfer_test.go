@@ -2,6 +2,7 @@ package fit
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"testing"
 
@@ -120,6 +121,49 @@ func TestFitChargeTransferType(t *testing.T) {
 	for _, f := range res.Report.Files {
 		if f.Role == "pulse" && f.RMSE > 1e-3 {
 			t.Errorf("%s: pulse-window RMSE %.2f mV on noise-free data", f.Name, f.RMSE*1e3)
+		}
+	}
+}
+
+// TestFitArrheniusBetweenTemperatures: with pulse tests at 0 and 25 °C of a cell whose
+// resistances follow the Arrhenius law (REFERENCE.md §2.6), the fitted tables must
+// follow the law between the tested temperatures too (linear interpolation in T would
+// read about 10 % high half-way for 40 kJ/mol), and beyond them with the activation
+// energy measured from the two tests.
+func TestFitArrheniusBetweenTemperatures(t *testing.T) {
+	const ea = 40e3 // J/mol, inside REFERENCE.md §2.6's "20–50 kJ/mol typical" (from memory there)
+	typ := syntheticType(t)
+	typ.R0.ActivationEnergy = ea
+	for j := range typ.Branches {
+		typ.Branches[j].R.ActivationEnergy = ea // C held: τ = R·C grows in the cold
+	}
+	if err := typ.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	var tests []Record
+	for _, tk := range []float64{273.15, 298.15} {
+		r := newRecorder(typ, 1, 1)
+		r.tk = tk
+		r.rec.Temperature[0] = tk
+		r.hold(0, 600)
+		for range 6 {
+			r.hold(2*trueQ, 10)
+			r.hold(0, 300)
+			r.hold(trueQ, 360)
+			r.hold(0, 1800)
+		}
+		r.rec.Name = fmt.Sprintf("synthetic-%.0fK", tk)
+		tests = append(tests, r.rec)
+	}
+	res, err := Fit(context.Background(), &Problem{OCVTest: lowRate(typ), PulseTests: tests}, &Settings{NoRestAnchoring: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []float64{5, 12.5, 20, -10, 35} {
+		tk := cell.Kelvin(c)
+		want := typ.R0.At(0.5, tk)
+		if got := res.Type.R0.At(0.5, tk); math.Abs(got/want-1) > 0.03 {
+			t.Errorf("R0 at %g °C = %.4g mΩ; Arrhenius gives %.4g mΩ (within 3 %%)", c, got*1e3, want*1e3)
 		}
 	}
 }
