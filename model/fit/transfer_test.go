@@ -41,19 +41,20 @@ func multiPulse(typ *cell.Type, nLevels int) Record {
 	return r.rec
 }
 
-// TestPulsesRecoverChargeTransfer: pulses of four magnitudes identify the exchange
-// current of the fast branch together with the other parameters (issue 3: recovery of
-// known parameters from synthetic pulse data within 2 %).
-func TestPulsesRecoverChargeTransfer(t *testing.T) {
+// TestFitChargeTransfer: pulses of four magnitudes identify the exchange current of the
+// fast branch together with the other parameters (issue 3: recovery of known parameters
+// from synthetic pulse data within 2 %), and Fit carries it into the type, which then
+// reproduces the pulse test.
+func TestFitChargeTransfer(t *testing.T) {
 	typ := transferType(t)
-	res, err := Pulses(context.Background(), multiPulse(typ, 5), typ.OCV.Curve(0), trueQ, nil)
+	res, err := Fit(context.Background(), &Problem{OCVTest: lowRate(typ), PulseTests: []Record{multiPulse(typ, 4)}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(res.Levels) != 5 {
-		t.Fatalf("%d levels; want 5", len(res.Levels))
+	if n := len(res.Pulses[0].Levels); n != 4 {
+		t.Fatalf("%d levels; want 4", n)
 	}
-	for _, l := range res.Levels {
+	for _, l := range res.Pulses[0].Levels {
 		if l.Magnitudes < 7.9 {
 			t.Errorf("level %.2f: magnitude spread %.2f; want 8", l.SOC, l.Magnitudes)
 		}
@@ -70,6 +71,21 @@ func TestPulsesRecoverChargeTransfer(t *testing.T) {
 		}
 		if !math.IsInf(l.I0[1].Value, 1) {
 			t.Errorf("level SOC %.2f: slow branch fitted with i0 = %g; want ohmic", l.SOC, l.I0[1].Value)
+		}
+	}
+	x := res.Type.Branches[0].ExchangeCurrent
+	if x == nil {
+		t.Fatal("fast branch has no exchange current")
+	}
+	if got := x.At(0.6, 298.15); math.Abs(got/trueI0-1) > 0.02 {
+		t.Errorf("fitted i0 at SOC 0.6 = %.4g A; want %.4g within 2 %%", got, trueI0)
+	}
+	if res.Type.Branches[1].ExchangeCurrent != nil {
+		t.Errorf("slow branch has an exchange current; want ohmic")
+	}
+	for _, f := range res.Report.Files {
+		if f.Role == "pulse" && f.RMSE > 1e-3 {
+			t.Errorf("%s: pulse-window RMSE %.2f mV on noise-free data", f.Name, f.RMSE*1e3)
 		}
 	}
 }
@@ -95,32 +111,6 @@ func TestPulsesOneMagnitudeStaysOhmic(t *testing.T) {
 	for j, b := range res.Type.Branches {
 		if b.ExchangeCurrent != nil {
 			t.Errorf("branch %d has an exchange current; want none", j+1)
-		}
-	}
-}
-
-// TestFitChargeTransferType: Fit carries the identified exchange current into the
-// type, and the type reproduces the pulse test.
-func TestFitChargeTransferType(t *testing.T) {
-	typ := transferType(t)
-	p := &Problem{OCVTest: lowRate(typ), PulseTests: []Record{multiPulse(typ, 5)}}
-	res, err := Fit(context.Background(), p, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	x := res.Type.Branches[0].ExchangeCurrent
-	if x == nil {
-		t.Fatal("fast branch has no exchange current")
-	}
-	if got := x.At(0.6, 298.15); math.Abs(got/trueI0-1) > 0.02 {
-		t.Errorf("fitted i0 at SOC 0.6 = %.4g A; want %.4g within 2 %%", got, trueI0)
-	}
-	if res.Type.Branches[1].ExchangeCurrent != nil {
-		t.Errorf("slow branch has an exchange current; want ohmic")
-	}
-	for _, f := range res.Report.Files {
-		if f.Role == "pulse" && f.RMSE > 1e-3 {
-			t.Errorf("%s: pulse-window RMSE %.2f mV on noise-free data", f.Name, f.RMSE*1e3)
 		}
 	}
 }
