@@ -78,7 +78,10 @@ func totalsJSON(t charge.Totals) chargeTotalsJSON {
 		ChargeAmpHours: t.ChargeAh, EnergyWattHours: t.EnergyWh, SupplyEnergyWattHours: t.SupplyWh}
 }
 
-func runCharge(_ context.Context, args []string, stdout, stderr io.Writer) error {
+func runCharge(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if onServer(args) { // a stored battery on a running server (client_forecast.go)
+		return runChargeRemote(ctx, args, stdout, stderr)
+	}
 	fs := newFlagSet("charge", stderr)
 	typeName := fs.String("type", "", "built-in cell type (see voltcast types) or a JSON parameter file (required)")
 	soc := fs.Float64("soc", math.NaN(), "state of charge now, a fraction 0–1 (required)")
@@ -100,6 +103,7 @@ func runCharge(_ context.Context, args []string, stdout, stderr io.Writer) error
 		fmt.Fprintln(stderr, "Plans a charge for the chemistry. Current is positive when it leaves the pack, so charge")
 		fmt.Fprintln(stderr, "currents print negative in JSON. A plan is a model estimate: the cell maker's datasheet,")
 		fmt.Fprintln(stderr, "local codes and licensed practice always take precedence.")
+		fmt.Fprintln(stderr, "With --battery NAME [--server ADDR] it asks a running server about a stored battery instead (add -h for those flags).")
 		fs.PrintDefaults()
 	}
 	if err := parseFlags(fs, args); err != nil {

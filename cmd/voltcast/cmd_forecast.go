@@ -66,7 +66,10 @@ type traceRowJSON struct {
 	RCVoltagesVolts []float64 `json:"rc_voltages_volts,omitempty"`
 }
 
-func runForecast(_ context.Context, args []string, stdout, stderr io.Writer) error {
+func runForecast(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if onServer(args) { // a stored battery on a running server (client_forecast.go)
+		return runForecastRemote(ctx, args, stdout, stderr)
+	}
 	fs := newFlagSet("forecast", stderr)
 	pf := addPackFlags(fs, true)
 	floor := fs.Float64("soc-floor", 0, "also stop when the state of charge falls to this fraction (0: empty)")
@@ -81,6 +84,7 @@ func runForecast(_ context.Context, args []string, stdout, stderr io.Writer) err
 		fmt.Fprintln(stderr, "Forecasts the time until the pack reaches its cut-off voltage under the load, with the charge and energy delivered.")
 		fmt.Fprintln(stderr, "Current and power are positive on discharge. --cutoff-volts is the PACK voltage (cells in series × volts per cell).")
 		fmt.Fprintln(stderr, "A --profile repeats until the cut-off unless --repeat=false.")
+		fmt.Fprintln(stderr, "With --battery NAME [--server ADDR] it asks a running server about a stored battery instead (add -h for those flags).")
 		fs.PrintDefaults()
 	}
 	if err := parseFlags(fs, args); err != nil {
