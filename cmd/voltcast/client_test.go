@@ -378,6 +378,22 @@ func TestClientIngestForecastCharge(t *testing.T) {
 		}
 	}
 
+	// health --battery: the server's AssessHealth (here with too short a history for
+	// a trend, which the notes say).
+	var ah pb.AssessHealthResponse
+	unmarshal(t, mustRun(t, "health", "--battery", "cell-1", srv, "--json"), &ah)
+	wantAH, err := s.fc.AssessHealth(ctx, &pb.AssessHealthRequest{Battery: "batteries/cell-1", EndOfLifeCapacityFraction: 0.8})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !proto.Equal(&ah, wantAH) {
+		t.Errorf("health --json = %v; want %v", &ah, wantAH)
+	}
+	if out := mustRun(t, "health", "--battery", "cell-1", srv); !strings.Contains(out, "capacity") || !strings.Contains(out, "note:") {
+		t.Errorf("health printed\n%s", out)
+	}
+	wantFail(t, 2, []string{"--end-of-life-fraction"}, "health", "--battery", "cell-1", srv, "--end-of-life-fraction", "1.5")
+
 	// Without --battery or --server the offline paths are untouched.
 	if out := mustRun(t, "forecast", "--type", "generic-nmc-18650", "--soc", "0.5", "--temperature-celsius", "25", "--current-amps", "1"); !strings.Contains(out, "charge delivered  1.5 Ah") {
 		t.Errorf("offline forecast printed\n%s", out)
