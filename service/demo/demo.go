@@ -76,6 +76,11 @@ type Options struct {
 	History time.Duration
 	// SampleInterval is the time between two samples of a battery (default 10 s).
 	SampleInterval time.Duration
+	// MaxBatchBlocks and MaxBatchSamples bound each IngestTelemetry call; set them to
+	// the server's limits when those are lower than the defaults (1000 blocks, 5000
+	// samples).
+	MaxBatchBlocks  int
+	MaxBatchSamples int
 	// Seed selects the invented history (default 1).
 	Seed uint64
 	// Now returns the wall-clock time; nil means time.Now.
@@ -95,6 +100,12 @@ func (o Options) withDefaults() Options {
 	if o.SampleInterval <= 0 {
 		o.SampleInterval = 10 * time.Second
 	}
+	if o.MaxBatchBlocks <= 0 {
+		o.MaxBatchBlocks = 1000
+	}
+	if o.MaxBatchSamples <= 0 || o.MaxBatchSamples > 5000 {
+		o.MaxBatchSamples = 5000
+	}
 	if o.Seed == 0 {
 		o.Seed = 1
 	}
@@ -103,10 +114,6 @@ func (o Options) withDefaults() Options {
 	}
 	return o
 }
-
-// maxSamplesPerCall keeps each IngestTelemetry call well inside the API's limit of
-// 100000 samples (a server may be configured lower).
-const maxSamplesPerCall = 5000
 
 // Run registers the demo fleet on the server at opts.Address and replays its
 // telemetry until ctx ends. It returns nil when ctx ends, and an error when the fleet
@@ -273,15 +280,18 @@ func (r *replay) loop(ctx context.Context) {
 	}
 }
 
-// send ingests the pending samples in calls of at most maxSamplesPerCall samples,
-// one block per battery. Samples stay pending when their call fails, and are
+// send ingests the pending samples in calls of at most Options.MaxBatchSamples
+// samples and Options.MaxBatchBlocks blocks, one block per battery. Samples stay pending when their call fails, and are
 // dropped once the server has answered for them.
 func (r *replay) send(ctx context.Context) {
 	for {
 		req := &pb.IngestTelemetryRequest{}
 		var idx, counts []int
-		room := maxSamplesPerCall
+		room := r.opts.MaxBatchSamples
 		for k, u := range r.units {
+			if len(req.Blocks) == r.opts.MaxBatchBlocks {
+				break
+			}
 			n := min(len(r.pending[k]), room)
 			if n == 0 {
 				continue

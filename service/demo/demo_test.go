@@ -136,6 +136,8 @@ func TestRunReplaysAndRestarts(t *testing.T) {
 	opts := demo.Options{
 		Address: addr, Logger: log,
 		Speedup: 200000, Tick: 10 * time.Millisecond, History: 90 * time.Minute,
+		// Small calls, as a server with low limits needs: several per tick.
+		MaxBatchBlocks: 3, MaxBatchSamples: 700,
 		Now: func() time.Time { return *now.Load() },
 	}
 	run := func() (stop func()) {
