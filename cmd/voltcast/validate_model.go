@@ -412,7 +412,7 @@ func modelValidationSections(ctx context.Context, root string, quick bool, progr
 func writeFitSection(b *strings.Builder, rs []*cellResult) {
 	b.WriteString("## Fitted types\n\n")
 	b.WriteString("Each cell's type is fitted by `voltcast fit` (package model/fit) from that cell's low-rate OCV test and pulse test(s) only, with default settings " +
-		"(2 RC branches, OCV rows anchored to the pulse tests' rested voltages). Nothing below is tuned on the drive cycles, profiles or constant-current discharges.\n\n")
+		"(2 RC branches, the fastest a Butler–Volmer charge-transfer branch where the pulses span several current magnitudes, OCV rows anchored to the pulse tests' rested voltages, Arrhenius rows between and beyond the tested temperatures). Nothing below is tuned on the drive cycles, profiles or constant-current discharges.\n\n")
 	b.WriteString("| dataset | cell | fitted from | capacity Ah | pulse-window RMSE mV | notes |\n|---|---|---|---|---|---|\n")
 	for _, r := range rs {
 		var pulseRMSE []string

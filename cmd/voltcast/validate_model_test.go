@@ -30,23 +30,21 @@ func datasetsOrSkip(t *testing.T, name string) string {
 }
 
 // voltageGuardMV holds the CI bound of the profiles that miss the issue's target: the
-// number this subset measured when it was written, plus about 10 %. (The subset fits the
-// 25 °C pulse test only, so its numbers differ slightly from docs/validation.md, whose
-// fit also has the cold pulse tests.) They are
-// regression guards, not targets; docs/validation.md reports the misses and why
-// (capacity fade between the pulse test and the drive cycles, and diffusion slower than
-// the 10 s pulses reveal).
+// number this subset measured when it was last changed, plus about 10 %. (The subset fits
+// the 25 °C pulse test only, so its numbers differ slightly from docs/validation.md, whose
+// fit also has the cold pulse tests.) They are regression guards, not targets;
+// docs/validation.md reports the misses and why (polarisation that builds up under
+// sustained load at low state of charge, which the 10 s pulses do not reveal).
 var voltageGuardMV = map[string]float64{
-	"drive_25degC_Cycle1.csv": 19, // measured 16.9 mV
-	"drive_25degC_HWFET.csv":  28, // measured 25.1 mV
-	"drive_25degC_US06.csv":   35, // measured 31.9 mV
+	"drive_25degC_Cycle1.csv": 19, // measured 17.2 mV (16.9 before the charge-transfer branch)
+	"drive_25degC_HWFET.csv":  27, // measured 24.4 mV (25.1 before)
+	"drive_25degC_US06.csv":   35, // measured 31.9 mV (31.9 before)
 }
 
 // socGuardPct likewise bounds the SOC RMSE and max error (%) where the target is missed.
-var socGuardPct = map[string][2]float64{
-	"drive_25degC_HWFET.csv": {2.2, 4.4}, // measured 1.95 / 3.97
-	"drive_25degC_US06.csv":  {3.3, 6.6}, // measured 2.97 / 5.93
-}
+// Every 25 °C profile of the subset now meets the target (measured RMSE 0.66–0.98 %,
+// max 1.27–1.99 %), so it is empty and the targets are asserted.
+var socGuardPct = map[string][2]float64{}
 
 // TestValidationFastSubset is the CI subset of `make validate`: the pan18650pf cell
 // (Kollmeyer 2018, doi:10.17632/wykht8y7tg.1, CC BY 4.0), fitted from its C/20 OCV test
