@@ -263,21 +263,35 @@ type ingestOut struct {
 	State                 json.RawMessage
 }
 
-func TestClientIngestForecastCharge(t *testing.T) {
-	s := startTestServer(t)
-	ctx := context.Background()
+// ingestLogRows is the length of the log the ingest tests send.
+const ingestLogRows = 300
+
+// ingestStart is the instant time_s = 0 of that log stands for.
+const ingestStart = "2025-06-02T08:00:00Z"
+
+// serverWithTelemetry starts a server, registers batteries/cell-1 (a 1s1p generic NMC
+// cell) and sends it a log through voltcast ingest: 300 rows, then one with a current
+// no 3 Ah cell can carry, which the server rejects. It returns the server, the log's
+// path, and the ingest's stdout and stderr.
+func serverWithTelemetry(t *testing.T) (s *testServer, log, out, errs string) {
+	t.Helper()
+	s = startTestServer(t)
 	srv := "--server=" + s.addr
 	mustRun(t, "batteries", "create", "cell-1", srv, "--type", "generic-nmc-18650", "--series", "1")
-
-	// 300 rows, then one with a current no 3 Ah cell can carry, which the server rejects.
-	const rows = 300
-	log := writeIngestLog(t, rows, fmt.Sprintf("%d,4000,3.0,25\n", rows))
-	start := "2025-06-02T08:00:00Z"
-	var first ingestOut
-	code, out, errs := runVoltcast(t, "ingest", srv, "--battery", "cell-1", "--in", log, "--start-time", start, "--chunk-samples", "64", "--json")
+	log = writeIngestLog(t, ingestLogRows, fmt.Sprintf("%d,4000,3.0,25\n", ingestLogRows))
+	code, out, errs := runVoltcast(t, "ingest", srv, "--battery", "cell-1", "--in", log, "--start-time", ingestStart, "--chunk-samples", "64", "--json")
 	if code != 0 {
 		t.Fatalf("ingest: exit %d: %s", code, errs)
 	}
+	return s, log, out, errs
+}
+
+func TestClientIngest(t *testing.T) {
+	s, log, out, errs := serverWithTelemetry(t)
+	ctx := context.Background()
+	srv := "--server=" + s.addr
+	const rows, start = ingestLogRows, ingestStart
+	var first ingestOut
 	if err := json.Unmarshal([]byte(out), &first); err != nil {
 		t.Fatalf("ingest --json: %v\n%s", err, out)
 	}
@@ -316,6 +330,12 @@ func TestClientIngestForecastCharge(t *testing.T) {
 	}
 	wantFail(t, 1, []string{"NOT_FOUND"}, "ingest", srv, "--battery", "nope", "--in", log, "--start-time", start)
 	wantFail(t, 2, []string{"--start-time"}, "ingest", srv, "--battery", "cell-1", "--in", log)
+}
+
+func TestClientForecast(t *testing.T) {
+	s, _, _, _ := serverWithTelemetry(t)
+	ctx := context.Background()
+	srv := "--server=" + s.addr
 
 	// forecast --battery: the server's ForecastRuntime for the same request.
 	var fr pb.ForecastRuntimeResponse
@@ -327,7 +347,7 @@ func TestClientIngestForecastCharge(t *testing.T) {
 	if !proto.Equal(&fr, wantFR) {
 		t.Errorf("forecast --battery --json = %v; want %v", &fr, wantFR)
 	}
-	out = mustRun(t, "forecast", "--battery", "cell-1", srv, "--power-watts", "5", "--temperature-celsius", "10", "--horizon-hours", "48")
+	out := mustRun(t, "forecast", "--battery", "cell-1", srv, "--power-watts", "5", "--temperature-celsius", "10", "--horizon-hours", "48")
 	for _, want := range []string{"runtime", "range (±1σ)", "caution"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("forecast --battery printed\n%s\nwithout %q", out, want)
@@ -351,6 +371,17 @@ func TestClientIngestForecastCharge(t *testing.T) {
 	wantFail(t, 2, []string{"exactly one load"}, "forecast", "--battery", "cell-1", srv)
 	wantFail(t, 1, []string{"NOT_FOUND"}, "forecast", "--battery", "nope", srv, "--current-amps", "1")
 
+	// Without --battery or --server the offline path is untouched.
+	if out := mustRun(t, "forecast", "--type", "generic-nmc-18650", "--soc", "0.5", "--temperature-celsius", "25", "--current-amps", "1"); !strings.Contains(out, "charge delivered  1.5 Ah") {
+		t.Errorf("offline forecast printed\n%s", out)
+	}
+}
+
+func TestClientCharge(t *testing.T) {
+	s, _, _, _ := serverWithTelemetry(t)
+	ctx := context.Background()
+	srv := "--server=" + s.addr
+
 	// charge --battery: the server's PlanCharge for the same request.
 	begin := "2025-06-02T20:00:00Z"
 	var pc pb.PlanChargeResponse
@@ -371,12 +402,19 @@ func TestClientIngestForecastCharge(t *testing.T) {
 	if len(pc.GetCautions()) == 0 {
 		t.Error("charge --battery: no cautions")
 	}
-	out = mustRun(t, "charge", "--battery", "cell-1", srv, "--charger-current-amps", "1.5")
+	out := mustRun(t, "charge", "--battery", "cell-1", srv, "--charger-current-amps", "1.5")
 	for _, want := range []string{"PHASE", "constant-current", "cautions:"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("charge --battery printed\n%s\nwithout %q", out, want)
 		}
 	}
+	wantFail(t, 2, []string{"--deadline"}, "charge", "--battery", "cell-1", srv, "--deadline", "-1h")
+}
+
+func TestClientHealth(t *testing.T) {
+	s, _, _, _ := serverWithTelemetry(t)
+	ctx := context.Background()
+	srv := "--server=" + s.addr
 
 	// health --battery: the server's AssessHealth (here with too short a history for
 	// a trend, which the notes say).
@@ -393,9 +431,4 @@ func TestClientIngestForecastCharge(t *testing.T) {
 		t.Errorf("health printed\n%s", out)
 	}
 	wantFail(t, 2, []string{"--end-of-life-fraction"}, "health", "--battery", "cell-1", srv, "--end-of-life-fraction", "1.5")
-
-	// Without --battery or --server the offline paths are untouched.
-	if out := mustRun(t, "forecast", "--type", "generic-nmc-18650", "--soc", "0.5", "--temperature-celsius", "25", "--current-amps", "1"); !strings.Contains(out, "charge delivered  1.5 Ah") {
-		t.Errorf("offline forecast printed\n%s", out)
-	}
 }
