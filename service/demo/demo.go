@@ -150,6 +150,8 @@ type replay struct {
 	units []*unit
 	// pending holds each unit's generated samples not yet acknowledged by the server.
 	pending [][]sample
+	// gone marks the units whose battery was deleted while the demo ran.
+	gone []bool
 }
 
 // register creates the fleet's batteries (or finds them from an earlier run), fixes
@@ -196,6 +198,7 @@ func (r *replay) register(ctx context.Context) error {
 		r.units = append(r.units, u)
 	}
 	r.pending = make([][]sample, len(r.units))
+	r.gone = make([]bool, len(r.units))
 	r.log.Info("demo fleet registered", "batteries", len(r.units), "replay_start", r.epoch.Format(time.RFC3339),
 		"speedup", r.opts.Speedup)
 	if r.opts.HTTPAddress != "" {
@@ -263,6 +266,9 @@ func (r *replay) loop(ctx context.Context) {
 		}
 		simT = max(simT, next)
 		for k, u := range r.units {
+			if r.gone[k] {
+				continue
+			}
 			// Bound what piles up while the server does not answer (a day of samples).
 			for u.t+dt <= simT && len(r.pending[k]) < 86400/int(dt)+1 {
 				r.pending[k] = append(r.pending[k], u.step(dt))
@@ -281,8 +287,9 @@ func (r *replay) loop(ctx context.Context) {
 }
 
 // send ingests the pending samples in calls of at most Options.MaxBatchSamples
-// samples and Options.MaxBatchBlocks blocks, one block per battery. Samples stay pending when their call fails, and are
-// dropped once the server has answered for them.
+// samples and Options.MaxBatchBlocks blocks, one block per battery. Samples stay
+// pending when their call fails, and are dropped once the server has answered for
+// them. A battery deleted meanwhile leaves the replay.
 func (r *replay) send(ctx context.Context) {
 	for {
 		req := &pb.IngestTelemetryRequest{}
@@ -291,6 +298,9 @@ func (r *replay) send(ctx context.Context) {
 		for k, u := range r.units {
 			if len(req.Blocks) == r.opts.MaxBatchBlocks {
 				break
+			}
+			if r.gone[k] {
+				continue
 			}
 			n := min(len(r.pending[k]), room)
 			if n == 0 {
@@ -310,10 +320,18 @@ func (r *replay) send(ctx context.Context) {
 			}
 			return
 		}
+		if len(resp.GetResults()) != len(idx) {
+			r.log.Warn("demo: the server answered a different number of blocks; retrying next tick",
+				"sent", len(idx), "answered", len(resp.GetResults()))
+			return
+		}
 		for j, res := range resp.GetResults() {
 			k := idx[j]
 			r.pending[k] = slices.Delete(r.pending[k], 0, counts[j])
 			switch {
+			case res.GetError().GetCode() == "NOT_FOUND":
+				r.log.Info("demo: battery deleted; it leaves the replay", "battery", res.GetBattery())
+				r.gone[k], r.pending[k] = true, nil
 			case res.GetError() != nil:
 				r.log.Warn("demo: block refused", "battery", res.GetBattery(), "reason", res.GetError().GetReason(), "error", res.GetError().GetMessage())
 			case res.GetRejectedCount() > 0:

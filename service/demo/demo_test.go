@@ -116,9 +116,9 @@ func waitFor(t *testing.T, c pb.BatteryServiceClient, what string, ok func([]*pb
 
 // TestRunReplaysAndRestarts runs the demo against an in-process server: the fleet
 // appears, every battery's tracked state fills in up to the demo's clock, the replay
-// stops cleanly when its context ends, and a second run on the same store reuses the
-// batteries and carries on from where the server is, with nothing refused, rejected
-// or sent twice.
+// stops cleanly when its context ends, a second run on the same store reuses the
+// batteries and carries on from where the server is, with nothing refused or
+// rejected, and a battery deleted meanwhile leaves the replay.
 func TestRunReplaysAndRestarts(t *testing.T) {
 	var (
 		mu   sync.Mutex
@@ -211,13 +211,30 @@ func TestRunReplaysAndRestarts(t *testing.T) {
 	now.Store(&t1)
 	stop = run()
 	bs = waitFor(t, bats, "the second replay to catch up", caughtUp(t1))
-	stop()
 	if len(bs) != 8 {
 		t.Errorf("after a restart the fleet has %d batteries; want 8", len(bs))
 	}
 	for _, b := range bs {
 		if got := b.GetState().GetAppliedSequenceNumber(); got != lastGrid(t1).UnixMicro() || got <= first[b.GetName()] {
 			t.Errorf("%s: applied watermark %d after the restart; want %d", b.GetName(), got, lastGrid(t1).UnixMicro())
+		}
+	}
+
+	// A battery deleted while the replay runs leaves it; the others carry on.
+	const deleted = "batteries/vellum-cargo-02"
+	if _, err := bats.DeleteBattery(context.Background(), &pb.DeleteBatteryRequest{Name: deleted}); err != nil {
+		t.Fatalf("DeleteBattery: %v", err)
+	}
+	t2 := t1.Add(10 * time.Minute)
+	now.Store(&t2)
+	bs = waitFor(t, bats, "the replay to carry on without the deleted battery", caughtUp(t2))
+	stop()
+	if len(bs) != 7 {
+		t.Errorf("after a delete the fleet has %d batteries; want 7", len(bs))
+	}
+	for _, b := range bs {
+		if b.GetName() == deleted {
+			t.Errorf("%s came back after it was deleted", deleted)
 		}
 	}
 	if w := logs.list(); len(w) > 0 {
