@@ -91,7 +91,7 @@ func usage(w io.Writer) {
 	}
 	sort.Strings(names)
 	for _, n := range names {
-		fmt.Fprintf(w, "  %-10s %s\n", n, commands[n].summary)
+		fmt.Fprintf(w, "  %-14s %s\n", n, commands[n].summary)
 	}
 }
 
