@@ -361,10 +361,11 @@ func dot(a, b []float64) float64 {
 // Charge-transfer branch: where a level's pulses span at least a factor 2 in current
 // magnitude (the pan18650pf HPPC runs 0.5C to 6C), the fastest branch is also fitted as
 // a Butler–Volmer branch ([cell.Branch].ExchangeCurrent), with 2·i₀ tried on a grid
-// from 2× to 1/8 of the largest pulse current and then refined with the rest. It is
-// kept when it fits better than the ohmic branch and its nonlinearity is material over
-// the tested currents (2·i₀ below 4× the largest pulse current); otherwise the branch
-// stays ohmic. A single pulse magnitude cannot separate the nonlinearity from the
+// from 2× to 1/8 of the largest pulse current (the fast time constant searched again,
+// the slower one held at the ohmic optimum) and then refined with the rest. It is kept
+// when it fits better than the ohmic branch and its nonlinearity is material over the
+// tested currents (2·i₀ below 4× the largest pulse current); otherwise the branch stays
+// ohmic. A single pulse magnitude cannot separate the nonlinearity from the
 // resistance, so such tests always give ohmic branches.
 //
 // Confidence intervals are ±1.96 standard errors of the
@@ -686,10 +687,19 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 	if bestOhmic.taus == nil {
 		return lv, fmt.Errorf("%w: no admissible starting point for the RC fit", ErrData)
 	}
+	// For the charge-transfer candidates only the fast time constant is searched again
+	// (the slower ones stay at the ohmic grid optimum; Levenberg–Marquardt refines all).
 	if spread >= 2 {
 		for _, f := range []float64{2, 1, 0.5, 0.25, 0.125} {
 			i2s[0] = f * imax
-			try(0, 0)
+			copy(taus, bestOhmic.taus)
+			for _, g := range grid {
+				if nb > 1 && g >= bestOhmic.taus[1] {
+					break
+				}
+				taus[0] = g
+				try(nb, 0)
+			}
 		}
 	}
 	// Parameters: ln R0, then per branch ln Rⱼ and uⱼ with
@@ -745,8 +755,9 @@ func fitLevel(rec *Record, z []float64, ocv *table.Curve, ws []Window, nb, maxIt
 	// The charge-transfer branch is kept when it fits better and its nonlinearity is
 	// material over the tested currents: 2·i₀ below 4× the largest pulse current, where
 	// u(i) departs from i by more than 1 % (asinh(¼)·4 ≈ 0.99). Above that the data
-	// cannot tell it from an ohmic branch.
-	if bestCT.taus != nil {
+	// cannot tell it from an ohmic branch. It is refined only when its grid point already
+	// fits clearly better (by 1 % in the sum of squares) than the ohmic one's.
+	if bestCT.taus != nil && bestCT.ssr < 0.99*bestOhmic.ssr {
 		ct, err := solve(bestCT)
 		if err == nil && ct.sol.SSR < best.sol.SSR && i2Of(ct.sol.X[1+2*nb]) < 4*imax {
 			best = ct
