@@ -8,7 +8,7 @@ import (
 
 // benchType is a 2-RC type whose R0, R and C are tables over state of charge and
 // temperature (the shape fitted types have), with made-up smooth values.
-func benchType(b *testing.B) *Type {
+func benchType(b testing.TB) *Type {
 	b.Helper()
 	typ := testType(b)
 	z := []float64{0, 0.1, 0.3, 0.5, 0.7, 0.9, 1}
@@ -40,29 +40,33 @@ func benchType(b *testing.B) *Type {
 }
 
 // BenchmarkStep is one Pack.Step of a 2-RC cell with tabulated parameters (four table
-// lookups and two exponentials per step).
+// lookups and two exponentials per step), with ohmic branches and with the fast branch a
+// charge-transfer branch (one more table lookup and an asinh).
 func BenchmarkStep(b *testing.B) {
-	p := Pack{Type: benchType(b), Series: 1, Parallel: 1}
-	tk := Kelvin(10)
-	s := State{SOC: 0.6}
-	b.ReportAllocs()
-	for b.Loop() {
-		p.Step(&s, 2, 1, tk)
-		s.SOC = 0.6
+	run := func(b *testing.B, typ *Type) {
+		p := Pack{Type: typ, Series: 1, Parallel: 1}
+		tk := Kelvin(10)
+		s := State{SOC: 0.6}
+		b.ReportAllocs()
+		for b.Loop() {
+			p.Step(&s, 2, 1, tk)
+			s.SOC = 0.6
+		}
 	}
+	b.Run("ohmic", func(b *testing.B) { run(b, benchType(b)) })
+	b.Run("charge-transfer", func(b *testing.B) {
+		typ := benchType(b)
+		typ.Branches[0].ExchangeCurrent = &Param{Table: typ.R0.Table}
+		run(b, typ)
+	})
 }
 
-// BenchmarkStepChargeTransfer is BenchmarkStep with the fast branch a charge-transfer
-// branch (one more table lookup and an asinh).
-func BenchmarkStepChargeTransfer(b *testing.B) {
-	typ := benchType(b)
-	typ.Branches[0].ExchangeCurrent = &Param{Table: typ.R0.Table}
-	p := Pack{Type: typ, Series: 1, Parallel: 1}
-	tk := Kelvin(10)
-	s := State{SOC: 0.6}
-	b.ReportAllocs()
-	for b.Loop() {
-		p.Step(&s, 2, 1, tk)
-		s.SOC = 0.6
+func TestStepNoAllocs(t *testing.T) {
+	typ := testType(t)
+	typ.Branches[0].ExchangeCurrent = &Param{Value: 0.5}
+	p := Pack{Type: typ, Series: 2, Parallel: 3}
+	s := State{SOC: 0.5}
+	if n := testing.AllocsPerRun(100, func() { p.Step(&s, 3, 1, Kelvin(25)) }); n != 0 {
+		t.Errorf("Step allocates %g times per step; want 0", n)
 	}
 }
