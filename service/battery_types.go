@@ -7,7 +7,6 @@ import (
 	"errors"
 	"fmt"
 	"strconv"
-	"strings"
 	"time"
 
 	"google.golang.org/grpc/codes"
@@ -144,10 +143,6 @@ func builtinToPB(t *cell.Type) *pb.BatteryType {
 	return out
 }
 
-// calibrationSourcePrefix marks the entry of a type's sources that names the
-// calibration it was fitted by.
-const calibrationSourcePrefix = "fitted by " + collCalibrations + "/"
-
 func storedTypeToPB(st store.BatteryType) (*pb.BatteryType, error) {
 	t, err := decodeType(st)
 	if err != nil {
@@ -156,10 +151,8 @@ func storedTypeToPB(st store.BatteryType) (*pb.BatteryType, error) {
 	out := typeToPB(t, batteryTypeName(st.Name))
 	out.DisplayName = st.DisplayName
 	out.CreateTime = timestamppb.New(st.CreateTime)
-	for _, src := range t.Sources {
-		if id, ok := strings.CutPrefix(src, calibrationSourcePrefix); ok {
-			out.Calibration = calibrationName(id)
-		}
+	if st.CalibrationID != "" {
+		out.Calibration = calibrationName(st.CalibrationID)
 	}
 	return out, nil
 }
@@ -250,12 +243,13 @@ func (h *batteryTypeServer) create(ctx context.Context, req *pb.CreateBatteryTyp
 		return nil, err
 	}
 	var t *cell.Type
+	var calID string
 	if c := req.GetCalibration(); c != "" {
-		ft, err := h.s.fittedType(ctx, "calibration", c)
+		ft, cid, err := h.s.fittedType(ctx, "calibration", c)
 		if err != nil {
 			return nil, err
 		}
-		t = ft
+		t, calID = ft, cid
 		t.Name = id
 		if d := req.GetBatteryType().GetDescription(); d != "" {
 			if len(d) > maxDescription {
@@ -278,10 +272,11 @@ func (h *batteryTypeServer) create(ctx context.Context, req *pb.CreateBatteryTyp
 	}
 	start := time.Now()
 	st, err := h.s.store.CreateBatteryType(ctx, tenant(ctx), store.BatteryType{
-		Name:        id,
-		DisplayName: req.GetBatteryType().GetDisplayName(),
-		Chemistry:   string(t.Chemistry),
-		Parameters:  params,
+		Name:          id,
+		DisplayName:   req.GetBatteryType().GetDisplayName(),
+		Chemistry:     string(t.Chemistry),
+		Parameters:    params,
+		CalibrationID: calID,
 	}, req.GetRequestId())
 	h.s.metrics.observeStore(ctx, "CreateBatteryType", start)
 	if err != nil {

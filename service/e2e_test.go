@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"io"
 	"log/slog"
 	"math"
@@ -31,28 +32,56 @@ import (
 	"github.com/voltcast/voltcast/model/sim"
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 	"github.com/voltcast/voltcast/service"
+	"github.com/voltcast/voltcast/service/internal/pgtest"
+	"github.com/voltcast/voltcast/service/store"
 	"github.com/voltcast/voltcast/service/store/sqlite"
 )
 
 // env is an in-process server: the real gRPC server on a loopback port chosen by the
-// kernel, the REST gateway on another, and the embedded SQLite store in a temporary
-// directory.
+// kernel, the REST gateway on another, and a store: the embedded SQLite store in a
+// temporary directory, or PostgreSQL in a fresh schema (see eachStore).
 type env struct {
 	conn     *grpc.ClientConn
 	httpBase string
 	types    pb.BatteryTypeServiceClient
 	bats     pb.BatteryServiceClient
 	tel      pb.TelemetryServiceClient
+	fc       pb.ForecastServiceClient
+	cal      pb.CalibrationServiceClient
 	svc      *service.Service
+	st       store.Store
 }
 
-func newEnv(t *testing.T, limits service.Limits) *env {
+// opener opens a fresh, empty store for one test.
+type opener func(t *testing.T) store.Store
+
+func openSQLite(t *testing.T) store.Store {
 	t.Helper()
-	ctx := context.Background()
-	st, err := sqlite.Open(ctx, filepath.Join(t.TempDir(), "voltcast.db"), nil)
+	st, err := sqlite.Open(context.Background(), filepath.Join(t.TempDir(), "voltcast.db"), nil)
 	if err != nil {
 		t.Fatalf("sqlite.Open: %v", err)
 	}
+	return st
+}
+
+// openPostgres opens a store in a fresh schema, or skips (see package pgtest:
+// VOLTCAST_TEST_POSTGRES_DSN, VOLTCAST_REQUIRE_POSTGRES).
+func openPostgres(t *testing.T) store.Store { return pgtest.Open(t) }
+
+// eachStore runs f once per store backend, as subtests "sqlite" and "postgres".
+func eachStore(t *testing.T, f func(t *testing.T, open opener)) {
+	for _, b := range []struct {
+		name string
+		open opener
+	}{{"sqlite", openSQLite}, {"postgres", openPostgres}} {
+		t.Run(b.name, func(t *testing.T) { f(t, b.open) })
+	}
+}
+
+func newEnv(t *testing.T, open opener, limits service.Limits) *env {
+	t.Helper()
+	ctx := context.Background()
+	st := open(t)
 	log := slog.New(slog.NewTextHandler(t.Output(), &slog.HandlerOptions{Level: slog.LevelWarn}))
 	svc, err := service.New(service.Options{Store: st, Logger: log, Limits: limits})
 	if err != nil {
@@ -86,13 +115,18 @@ func newEnv(t *testing.T, limits service.Limits) *env {
 		if err := svc.Flush(context.Background()); err != nil {
 			t.Errorf("Flush: %v", err)
 		}
+		if err := svc.Close(context.Background()); err != nil {
+			t.Errorf("Close: %v", err)
+		}
 		st.Close()
 	})
 	return &env{
-		conn: conn, httpBase: "http://" + hlis.Addr().String(), svc: svc,
+		conn: conn, httpBase: "http://" + hlis.Addr().String(), svc: svc, st: st,
 		types: pb.NewBatteryTypeServiceClient(conn),
 		bats:  pb.NewBatteryServiceClient(conn),
 		tel:   pb.NewTelemetryServiceClient(conn),
+		fc:    pb.NewForecastServiceClient(conn),
+		cal:   pb.NewCalibrationServiceClient(conn),
 	}
 }
 
@@ -133,8 +167,10 @@ func details(err error) (reason string, fields []string) {
 	return reason, fields
 }
 
-func TestBatteryTypesCatalogue(t *testing.T) {
-	e := newEnv(t, service.Limits{})
+func TestBatteryTypesCatalogue(t *testing.T) { eachStore(t, testBatteryTypesCatalogue) }
+
+func testBatteryTypesCatalogue(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
 	ctx := context.Background()
 
 	// Listing in pages of 4 returns the whole catalogue once, in order, and then stops.
@@ -213,8 +249,10 @@ func TestBatteryTypesCatalogue(t *testing.T) {
 	}
 }
 
-func TestBatteryTypeRegister(t *testing.T) {
-	e := newEnv(t, service.Limits{})
+func TestBatteryTypeRegister(t *testing.T) { eachStore(t, testBatteryTypeRegister) }
+
+func testBatteryTypeRegister(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
 	ctx := context.Background()
 	base, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/generic-lfp-26650"})
 	if err != nil {
@@ -268,8 +306,10 @@ func TestBatteryTypeRegister(t *testing.T) {
 	}
 }
 
-func TestBatteriesCRUDOverRESTAndGRPC(t *testing.T) {
-	e := newEnv(t, service.Limits{})
+func TestBatteriesCRUDOverRESTAndGRPC(t *testing.T) { eachStore(t, testBatteriesCRUDOverRESTAndGRPC) }
+
+func testBatteriesCRUDOverRESTAndGRPC(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
 	ctx := context.Background()
 
 	code, body := e.do(t, "POST", "/v1/batteries?batteryId=bike-7", `{"batteryType":"batteryTypes/generic-nmc-18650","seriesCount":13,"parallelCount":4,"displayName":"cargo bike 7","labels":{"fleet":"north"},"initialStateOfCharge":0.8}`)
@@ -378,7 +418,11 @@ func samples(pack cell.Pack, soc0, i float64, n int) (offsets, cur, volt []float
 }
 
 func TestTelemetryIngestIdempotentAndEqualToModel(t *testing.T) {
-	e := newEnv(t, service.Limits{PersistEverySamples: 50})
+	eachStore(t, testTelemetryIngestIdempotentAndEqualToModel)
+}
+
+func testTelemetryIngestIdempotentAndEqualToModel(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{PersistEverySamples: 50})
 	ctx := context.Background()
 	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "shop-ups", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 4, ParallelCount: 2}}); err != nil {
 		t.Fatal(err)
@@ -480,7 +524,7 @@ func TestTelemetryIngestIdempotentAndEqualToModel(t *testing.T) {
 	}
 
 	// Too large a batch is refused as a whole.
-	e2 := newEnv(t, service.Limits{MaxBatchSamples: 10})
+	e2 := newEnv(t, open, service.Limits{MaxBatchSamples: 10})
 	_, err = e2.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{block(0, 11)}})
 	if reason, _ := details(err); status.Code(err) != codes.InvalidArgument || reason != service.ReasonRequestTooLarge {
 		t.Errorf("oversized batch: %v; want INVALID_ARGUMENT REQUEST_TOO_LARGE", err)
@@ -492,8 +536,10 @@ func jsonNum(v float64) string {
 	return string(b)
 }
 
-func TestTelemetryStream(t *testing.T) {
-	e := newEnv(t, service.Limits{})
+func TestTelemetryStream(t *testing.T) { eachStore(t, testTelemetryStream) }
+
+func testTelemetryStream(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
 	ctx := context.Background()
 	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "drone-1", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-lfp-26650", SeriesCount: 6, ParallelCount: 1}}); err != nil {
 		t.Fatal(err)
@@ -548,8 +594,10 @@ func TestTelemetryStream(t *testing.T) {
 // model/forecast directly with the same problem (the model is validated on its own
 // against REFERENCE.md; here the API must neither change nor lose anything), and the
 // validation of bad loads.
-func TestForecastRuntime(t *testing.T) {
-	e := newEnv(t, service.Limits{})
+func TestForecastRuntime(t *testing.T) { eachStore(t, testForecastRuntime) }
+
+func testForecastRuntime(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
 	ctx := context.Background()
 	fc := pb.NewForecastServiceClient(e.conn)
 
@@ -617,5 +665,75 @@ func TestForecastRuntime(t *testing.T) {
 	_, err = fc.ForecastRuntime(ctx, &pb.ForecastRuntimeRequest{Battery: "batteries/none", Load: &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: 1}}})
 	if status.Code(err) != codes.NotFound {
 		t.Errorf("forecast of a missing battery: %v; want NOT_FOUND", err)
+	}
+}
+
+// TestTelemetryOutliers: a sample whose voltage the estimator's innovation gate
+// discards still counts as applied (its current moved the estimate and the watermark),
+// and is reported as an outlier, exactly where the model itself flags it.
+func TestTelemetryOutliers(t *testing.T) { eachStore(t, testTelemetryOutliers) }
+
+func testTelemetryOutliers(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
+	ctx := context.Background()
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "scooter-4", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 10, ParallelCount: 2}}); err != nil {
+		t.Fatal(err)
+	}
+	typ, _ := chem.Lookup("generic-nmc-18650")
+	pack, _ := cell.NewPack(typ, 10, 2)
+	off, cur, volt := samples(pack, 0.8, 3, 120)
+	// A 9 V dip on a 37 V pack: a bad reading, beyond the gate (the predicted σ of
+	// the voltage is about 2 V here; a rise that large would leave the sensor range
+	// and be rejected as invalid instead).
+	volt[100] -= 9
+	base := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	resp, err := e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{{Battery: "batteries/scooter-4", BaseTime: timestamppb.New(base),
+		TimeOffsetsSeconds: off, CurrentAmps: cur, VoltageVolts: volt, TemperatureCelsius: []float64{25}}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The model directly, on the same samples: which does its gate discard?
+	f, err := estimate.NewEKF(pack, 0.5, &estimate.Settings{Health: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := f.InitFromVoltage(volt[0], cell.Kelvin(25)); err != nil {
+		t.Fatal(err)
+	}
+	var flagged []int32
+	for k := range off {
+		tk := base.Add(time.Duration(off[k] * 1e9))
+		est, err := f.Update(estimate.Sample{Time: float64(tk.UnixNano()) / 1e9, Current: cur[k], Voltage: volt[k], Temperature: cell.Kelvin(25)})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if est.Flags&estimate.FlagRejected != 0 {
+			flagged = append(flagged, int32(k))
+		}
+	}
+	if len(flagged) == 0 {
+		t.Fatal("the model does not flag the 9 V dip; the test needs a sample it discards")
+	}
+	r := resp.GetResults()[0]
+	var got []int32
+	for _, o := range r.GetOutliers() {
+		got = append(got, o.GetIndex())
+		if o.GetReason() != pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUTLIER || o.GetMessage() == "" {
+			t.Errorf("outlier entry %v", o)
+		}
+	}
+	if r.GetAppliedCount() != int32(len(off)) || r.GetRejectedCount() != 0 || r.GetOutlierCount() != int32(len(flagged)) ||
+		fmt.Sprint(got) != fmt.Sprint(flagged) {
+		t.Errorf("block result: applied %d, rejected %d, outliers %d at %v; want all %d applied, none rejected, outliers at %v as the model flags",
+			r.GetAppliedCount(), r.GetRejectedCount(), r.GetOutlierCount(), got, len(off), flagged)
+	}
+	// Applied means applied: a resend is all duplicates, the spike included.
+	resp, err = e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{{Battery: "batteries/scooter-4", BaseTime: timestamppb.New(base),
+		TimeOffsetsSeconds: off[90:], CurrentAmps: cur[90:], VoltageVolts: volt[90:], TemperatureCelsius: []float64{25}}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r := resp.GetResults()[0]; r.GetDuplicateCount() != 30 || r.GetOutlierCount() != 0 {
+		t.Errorf("resend: %v; want 30 duplicates, no outliers", r)
 	}
 }

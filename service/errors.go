@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"maps"
 
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc/codes"
@@ -21,22 +22,29 @@ const ErrorDomain = "voltcast.dev"
 // Reasons: the google.rpc.ErrorInfo reason of every error this service returns (the
 // catalogue of AIP-193). Clients may switch on them; they never change meaning.
 const (
-	ReasonInvalidField      = "INVALID_FIELD"           // INVALID_ARGUMENT: BadRequest lists the fields
-	ReasonInvalidPageToken  = "INVALID_PAGE_TOKEN"      // INVALID_ARGUMENT: page_token not from this list
-	ReasonRequestTooLarge   = "REQUEST_TOO_LARGE"       // INVALID_ARGUMENT / RESOURCE_EXHAUSTED: over a size limit
-	ReasonNotFound          = "RESOURCE_NOT_FOUND"      // NOT_FOUND: ResourceInfo names the resource
-	ReasonAlreadyExists     = "RESOURCE_ALREADY_EXISTS" // ALREADY_EXISTS
-	ReasonVersionConflict   = "VERSION_CONFLICT"        // ABORTED: changed concurrently (or etag mismatch); re-read and retry
-	ReasonInUse             = "RESOURCE_IN_USE"         // FAILED_PRECONDITION: other resources refer to it
-	ReasonBuiltIn           = "BUILT_IN_READ_ONLY"      // FAILED_PRECONDITION: the built-in catalogue cannot change
-	ReasonNotRechargeable   = "NOT_RECHARGEABLE"        // FAILED_PRECONDITION: a primary cell must never be charged
-	ReasonNotReady          = "NOT_READY"               // FAILED_PRECONDITION: e.g. a calibration that has not succeeded
-	ReasonNotImplemented    = "NOT_IMPLEMENTED"         // UNIMPLEMENTED: the call exists in the API but not yet here
-	ReasonCancelled         = "CANCELLED"               // CANCELLED: the caller went away
-	ReasonDeadlineExceeded  = "DEADLINE_EXCEEDED"       // DEADLINE_EXCEEDED
-	ReasonInternal          = "INTERNAL"                // INTERNAL: details are in the server log only
-	ReasonUnavailable       = "UNAVAILABLE"             // UNAVAILABLE: the store cannot be reached; retry with backoff
-	ReasonSimulationFailure = "MODEL_FAILURE"           // FAILED_PRECONDITION: the model could not produce an answer for these inputs
+	ReasonInvalidField      = "INVALID_FIELD"              // INVALID_ARGUMENT: BadRequest lists the fields
+	ReasonInvalidPageToken  = "INVALID_PAGE_TOKEN"         // INVALID_ARGUMENT: page_token not from this list
+	ReasonRequestTooLarge   = "REQUEST_TOO_LARGE"          // INVALID_ARGUMENT / RESOURCE_EXHAUSTED: over a size limit
+	ReasonNotFound          = "RESOURCE_NOT_FOUND"         // NOT_FOUND: ResourceInfo names the resource
+	ReasonAlreadyExists     = "RESOURCE_ALREADY_EXISTS"    // ALREADY_EXISTS
+	ReasonVersionConflict   = "VERSION_CONFLICT"           // ABORTED: changed concurrently (or etag mismatch); re-read and retry
+	ReasonInUse             = "RESOURCE_IN_USE"            // FAILED_PRECONDITION: other resources refer to it
+	ReasonBuiltIn           = "BUILT_IN_READ_ONLY"         // FAILED_PRECONDITION: the built-in catalogue cannot change
+	ReasonNotRechargeable   = "NOT_RECHARGEABLE"           // FAILED_PRECONDITION: a primary cell must never be charged
+	ReasonChargeTemperature = "OUTSIDE_CHARGE_TEMPERATURE" // FAILED_PRECONDITION: the pack is outside its charge temperature window
+	ReasonQueueFull         = "CALIBRATION_QUEUE_FULL"     // RESOURCE_EXHAUSTED: every calibration worker is busy and the queue is full; retry later
+	ReasonNotReady          = "NOT_READY"                  // FAILED_PRECONDITION: e.g. a calibration that has not succeeded
+	ReasonNotImplemented    = "NOT_IMPLEMENTED"            // UNIMPLEMENTED: the call exists in the API but not yet here
+	ReasonCancelled         = "CANCELLED"                  // CANCELLED: the caller went away
+	ReasonDeadlineExceeded  = "DEADLINE_EXCEEDED"          // DEADLINE_EXCEEDED
+	ReasonInternal          = "INTERNAL"                   // INTERNAL: details are in the server log only
+	ReasonUnavailable       = "UNAVAILABLE"                // UNAVAILABLE: the store cannot be reached; retry with backoff
+	ReasonSimulationFailure = "MODEL_FAILURE"              // FAILED_PRECONDITION: the model could not produce an answer for these inputs
+	// Raised by the REST gateway itself (gateway/gateway.go), listed here so that the
+	// catalogue is complete.
+	ReasonInvalidJSON      = "INVALID_JSON"       // INVALID_ARGUMENT: the body is not JSON of the request, or names an unknown field
+	ReasonUnknownPath      = "UNKNOWN_PATH"       // NOT_FOUND: no API method at that HTTP path
+	ReasonMethodNotAllowed = "METHOD_NOT_ALLOWED" // UNIMPLEMENTED: the path exists, not with that HTTP method
 )
 
 // Error is an error the service raises itself, carrying everything the status needs.
@@ -52,6 +60,9 @@ type Error struct {
 	// Resource names the resource concerned (NOT_FOUND, ALREADY_EXISTS, ...), e.g.
 	// "batteries/b1".
 	Resource string
+	// Metadata is added to the ErrorInfo's metadata (e.g. the safety cautions of a
+	// refused charge plan).
+	Metadata map[string]string
 	// Err is the cause, if any; it is logged, never sent.
 	Err error
 }
@@ -202,8 +213,12 @@ func build(e *Error) error {
 	}
 	st := status.New(e.Code, msg)
 	info := &errdetails.ErrorInfo{Reason: e.Reason, Domain: ErrorDomain}
-	if e.Resource != "" {
-		info.Metadata = map[string]string{"resource": e.Resource}
+	if e.Resource != "" || len(e.Metadata) > 0 {
+		info.Metadata = make(map[string]string, len(e.Metadata)+1)
+		maps.Copy(info.Metadata, e.Metadata)
+		if e.Resource != "" {
+			info.Metadata["resource"] = e.Resource
+		}
 	}
 	details := []protoadapt.MessageV1{info}
 	switch e.Code {

@@ -14,9 +14,10 @@ import (
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 )
 
-// forecastServer serves ForecastService. PlanCharge and AssessHealth are not wired to
-// model/charge and model/ageing yet; the embedded Unimplemented server answers
-// UNIMPLEMENTED for them.
+// forecastServer serves ForecastService: ForecastRuntime on model/forecast (here),
+// PlanCharge on model/charge (charge.go), AssessHealth on model/ageing (health.go).
+// Each validates the whole request into violations first, then resolves the pack
+// (resolveSubject), then calls the model once.
 type forecastServer struct {
 	pb.UnimplementedForecastServiceServer
 	s *Service

@@ -15,6 +15,7 @@ type metrics struct {
 	samplesApplied   metric.Int64Counter
 	samplesDuplicate metric.Int64Counter
 	samplesRejected  metric.Int64Counter
+	samplesOutlier   metric.Int64Counter
 	activeBatteries  metric.Int64UpDownCounter
 	innovation       metric.Float64Histogram
 	storeLatency     metric.Float64Histogram
@@ -42,6 +43,11 @@ func newMetrics(mp metric.MeterProvider) (*metrics, error) {
 	try(func() (e error) {
 		ms.samplesRejected, e = m.Int64Counter("voltcast.telemetry.samples.rejected",
 			metric.WithDescription("Telemetry samples rejected, by reason."), metric.WithUnit("{sample}"))
+		return e
+	})
+	try(func() (e error) {
+		ms.samplesOutlier, e = m.Int64Counter("voltcast.telemetry.samples.outliers",
+			metric.WithDescription("Telemetry samples applied whose voltage the estimator discarded as an outlier (innovation gate); they are also counted as applied."), metric.WithUnit("{sample}"))
 		return e
 	})
 	try(func() (e error) {

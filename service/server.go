@@ -12,7 +12,6 @@ import (
 	"go.opentelemetry.io/otel/trace"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/health"
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/reflection"
 	"google.golang.org/grpc/status"
@@ -31,9 +30,10 @@ type ServerOptions struct {
 
 // NewGRPCServer assembles the gRPC server in one place: the OpenTelemetry stats
 // handler, the interceptor chain (recover outermost, then one log line per request),
-// the voltcast services, the health service and server reflection. The returned health
-// server starts SERVING; shutdown sets it to NOT_SERVING first.
-func NewGRPCServer(svc *Service, opts ServerOptions) (*grpc.Server, *health.Server) {
+// the voltcast services, the health service ([Health]: readiness includes a store
+// ping) and server reflection. The returned health server starts SERVING; shutdown
+// sets it to NOT_SERVING first.
+func NewGRPCServer(svc *Service, opts ServerOptions) (*grpc.Server, *Health) {
 	maxRecv := opts.MaxRecvBytes
 	if maxRecv <= 0 {
 		maxRecv = 16 << 20
@@ -53,8 +53,7 @@ func NewGRPCServer(svc *Service, opts ServerOptions) (*grpc.Server, *health.Serv
 		grpc.ChainStreamInterceptor(recoverStream(log), logStream(log)),
 	)
 	svc.Register(srv)
-	hs := health.NewServer()
-	hs.SetServingStatus("", healthpb.HealthCheckResponse_SERVING)
+	hs := NewHealth(svc)
 	healthpb.RegisterHealthServer(srv, hs)
 	reflection.Register(srv)
 	return srv, hs

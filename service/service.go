@@ -49,6 +49,16 @@ type Limits struct {
 	// PersistEverySamples persists a battery's state after this many applied samples
 	// (default 1000).
 	PersistEverySamples int
+	// CalibrationWorkers is the most calibration fits that run at once (default 1;
+	// each fit keeps one CPU busy).
+	CalibrationWorkers int
+	// CalibrationQueue is the most calibrations that wait for a worker (default 8);
+	// beyond it CreateCalibration is RESOURCE_EXHAUSTED.
+	CalibrationQueue int
+	// CalibrationLease is how long a PENDING or RUNNING calibration may go without a
+	// write before it counts as lost (its server died); running fits renew it every
+	// quarter of it (default 2 min). See calrunner.go.
+	CalibrationLease time.Duration
 }
 
 func (l Limits) withDefaults() Limits {
@@ -61,8 +71,13 @@ func (l Limits) withDefaults() Limits {
 	def(&l.MaxBatchSamples, 100000)
 	def(&l.MaxCalibrationSamples, 200000)
 	def(&l.PersistEverySamples, 1000)
+	def(&l.CalibrationWorkers, 1)
+	def(&l.CalibrationQueue, 8)
 	if l.PersistInterval <= 0 {
 		l.PersistInterval = 10 * time.Second
+	}
+	if l.CalibrationLease <= 0 {
+		l.CalibrationLease = 2 * time.Minute
 	}
 	return l
 }
@@ -87,6 +102,9 @@ type Service struct {
 	now     func() time.Time
 	metrics *metrics
 	tr      tracker
+	cal     *calRunner
+	// calHook, when set (tests only), runs after a calibration is marked RUNNING.
+	calHook func(id string)
 }
 
 // New returns a Service.
@@ -113,6 +131,7 @@ func New(opts Options) (*Service, error) {
 		metrics: m,
 		tr:      tracker{entries: map[string]*entry{}},
 	}
+	s.cal = newCalRunner(s.limits)
 	if s.now == nil {
 		s.now = time.Now
 	}

@@ -311,9 +311,18 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 			continue
 		}
 		if est.Flags&estimate.FlagRejected != 0 {
-			// The prediction (coulomb count) was applied; only the voltage was
-			// discarded by the innovation gate. The sample counts as applied.
-			s.metrics.samplesRejected.Add(ctx, 1, metric.WithAttributes(attribute.String("reason", pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUTLIER.String())))
+			// The prediction (charge counting) was applied and the watermark moves on;
+			// only the voltage was discarded by the innovation gate. So the sample
+			// counts as applied, and is reported as an outlier besides (telemetry.proto,
+			// BlockResult.outliers): calling it rejected would promise that it changed
+			// nothing, and a resend would not apply it again anyway.
+			res.OutlierCount++
+			s.metrics.samplesOutlier.Add(ctx, 1)
+			if len(res.Outliers) < maxRejectionsListed {
+				res.Outliers = append(res.Outliers, &pb.SampleRejection{Index: int32(k), SequenceNumber: seq,
+					Reason:  pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUTLIER,
+					Message: fmt.Sprintf("voltage %g V is %.1f standard deviations from the predicted %g V; the voltage was discarded, the current applied", volt, math.Abs(est.Innovation/est.InnovationSigma), est.Voltage)})
+			}
 		}
 		if est.InnovationSigma > 0 && cell.Finite(est.Innovation) {
 			s.metrics.innovation.Record(ctx, est.Innovation/est.InnovationSigma)

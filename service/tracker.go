@@ -247,11 +247,15 @@ func (s *Service) flush(ctx context.Context, due bool) error {
 	return first
 }
 
-// Run persists due battery states every second until ctx ends. The server runs it in
-// the background; shutdown calls [Service.Flush] afterwards.
+// Run persists due battery states every second, and every half calibration lease
+// marks the calibrations of dead servers failed ([Service.RecoverCalibrations]), until
+// ctx ends. The server runs it in the background; shutdown calls [Service.Flush]
+// afterwards.
 func (s *Service) Run(ctx context.Context) {
 	tick := time.NewTicker(time.Second)
 	defer tick.Stop()
+	sweep := time.NewTicker(s.limits.CalibrationLease / 2)
+	defer sweep.Stop()
 	for {
 		select {
 		case <-ctx.Done():
@@ -259,6 +263,10 @@ func (s *Service) Run(ctx context.Context) {
 		case <-tick.C:
 			if err := s.flush(ctx, true); err != nil && ctx.Err() == nil {
 				s.log.WarnContext(ctx, "persisting battery state", "error", err.Error())
+			}
+		case <-sweep.C:
+			if _, err := s.RecoverCalibrations(ctx, s.now().Add(-s.limits.CalibrationLease)); err != nil && ctx.Err() == nil {
+				s.log.WarnContext(ctx, "sweeping lost calibrations", "error", err.Error())
 			}
 		}
 	}
