@@ -38,6 +38,11 @@ type Config struct {
 	MaxBatchBlocks  int // --max-batch-blocks, VOLTCAST_MAX_BATCH_BLOCKS
 	MaxBatchSamples int // --max-batch-samples, VOLTCAST_MAX_BATCH_SAMPLES
 
+	MaxCalibrationSamples int           // --max-calibration-samples, VOLTCAST_MAX_CALIBRATION_SAMPLES
+	CalibrationWorkers    int           // --calibration-workers, VOLTCAST_CALIBRATION_WORKERS
+	CalibrationQueue      int           // --calibration-queue, VOLTCAST_CALIBRATION_QUEUE
+	CalibrationLease      time.Duration // --calibration-lease, VOLTCAST_CALIBRATION_LEASE
+
 	ShutdownTimeout time.Duration // --shutdown-timeout, VOLTCAST_SHUTDOWN_TIMEOUT
 }
 
@@ -60,6 +65,10 @@ func (c Config) LogValue() slog.Value {
 		slog.Int("max_request_bytes", c.MaxRequestBytes),
 		slog.Int("max_batch_blocks", c.MaxBatchBlocks),
 		slog.Int("max_batch_samples", c.MaxBatchSamples),
+		slog.Int("max_calibration_samples", c.MaxCalibrationSamples),
+		slog.Int("calibration_workers", c.CalibrationWorkers),
+		slog.Int("calibration_queue", c.CalibrationQueue),
+		slog.Duration("calibration_lease", c.CalibrationLease),
 		slog.Duration("shutdown_timeout", c.ShutdownTimeout),
 	)
 }
@@ -160,6 +169,10 @@ func parseConfig(args []string, lookup func(string) (string, bool), stderr io.Wr
 	integer(&c.MaxRequestBytes, "max-request-bytes", "VOLTCAST_MAX_REQUEST_BYTES", 16<<20, "largest gRPC request message and HTTP request body, bytes")
 	integer(&c.MaxBatchBlocks, "max-batch-blocks", "VOLTCAST_MAX_BATCH_BLOCKS", 1000, "most blocks in one telemetry batch")
 	integer(&c.MaxBatchSamples, "max-batch-samples", "VOLTCAST_MAX_BATCH_SAMPLES", 100000, "most samples in one telemetry batch or stream message")
+	integer(&c.MaxCalibrationSamples, "max-calibration-samples", "VOLTCAST_MAX_CALIBRATION_SAMPLES", 200000, "most samples in one calibration request, all tests together")
+	integer(&c.CalibrationWorkers, "calibration-workers", "VOLTCAST_CALIBRATION_WORKERS", 1, "calibration fits run at once (each keeps a CPU busy)")
+	integer(&c.CalibrationQueue, "calibration-queue", "VOLTCAST_CALIBRATION_QUEUE", 8, "calibrations that may wait for a worker; more are refused (RESOURCE_EXHAUSTED)")
+	duration(&c.CalibrationLease, "calibration-lease", "VOLTCAST_CALIBRATION_LEASE", 2*time.Minute, "a pending or running calibration not written for this long counts as lost (its server died)")
 	duration(&c.ShutdownTimeout, "shutdown-timeout", "VOLTCAST_SHUTDOWN_TIMEOUT", 15*time.Second, "how long graceful shutdown may take")
 
 	if err := fs.Parse(args); err != nil {
@@ -228,6 +241,18 @@ func (c Config) Validate() error {
 	}
 	if c.MaxBatchSamples < 1 || c.MaxBatchSamples > 100000 {
 		bad("--max-batch-samples %d: want 1 to 100000 (the API's limit)", c.MaxBatchSamples)
+	}
+	if c.MaxCalibrationSamples < 1 || c.MaxCalibrationSamples > 200000 {
+		bad("--max-calibration-samples %d: want 1 to 200000 (the API's limit)", c.MaxCalibrationSamples)
+	}
+	if c.CalibrationWorkers < 1 || c.CalibrationWorkers > 256 {
+		bad("--calibration-workers %d: want 1 to 256", c.CalibrationWorkers)
+	}
+	if c.CalibrationQueue < 1 || c.CalibrationQueue > 10000 {
+		bad("--calibration-queue %d: want 1 to 10000", c.CalibrationQueue)
+	}
+	if c.CalibrationLease < 4*time.Second || c.CalibrationLease > time.Hour {
+		bad("--calibration-lease %s: want 4s to 1h", c.CalibrationLease)
 	}
 	if c.ShutdownTimeout <= 0 {
 		bad("--shutdown-timeout %s: want a positive duration", c.ShutdownTimeout)

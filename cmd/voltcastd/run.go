@@ -19,6 +19,7 @@ import (
 	"github.com/voltcast/voltcast/gateway"
 	"github.com/voltcast/voltcast/service"
 	"github.com/voltcast/voltcast/service/store"
+	"github.com/voltcast/voltcast/service/store/postgres"
 	"github.com/voltcast/voltcast/service/store/sqlite"
 )
 
@@ -62,14 +63,31 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, lookup fu
 		Logger:        log,
 		MeterProvider: tel.meter,
 		Limits: service.Limits{
-			MaxBatchBlocks:      cfg.MaxBatchBlocks,
-			MaxBatchSamples:     cfg.MaxBatchSamples,
-			PersistInterval:     cfg.PersistInterval,
-			PersistEverySamples: cfg.PersistEverySamples,
+			MaxBatchBlocks:        cfg.MaxBatchBlocks,
+			MaxBatchSamples:       cfg.MaxBatchSamples,
+			MaxCalibrationSamples: cfg.MaxCalibrationSamples,
+			PersistInterval:       cfg.PersistInterval,
+			PersistEverySamples:   cfg.PersistEverySamples,
+			CalibrationWorkers:    cfg.CalibrationWorkers,
+			CalibrationQueue:      cfg.CalibrationQueue,
+			CalibrationLease:      cfg.CalibrationLease,
 		},
 	})
 	if err != nil {
 		return errors.Join(err, st.Close(), tel.shutdown(context.WithoutCancel(ctx)))
+	}
+	// Calibrations do not survive their server (service/calrunner.go). The embedded
+	// store belongs to this process alone, so every calibration the previous process
+	// left unfinished has lost its worker; with PostgreSQL other replicas may still be
+	// running theirs, so only those whose lease lapsed are.
+	before := time.Now()
+	if cfg.Store == "postgres" {
+		before = before.Add(-cfg.CalibrationLease)
+	}
+	if n, err := svc.RecoverCalibrations(ctx, before); err != nil {
+		log.Warn("marking lost calibrations failed", "error", err.Error())
+	} else if n > 0 {
+		log.Info("marked calibrations of a stopped server failed", "count", n)
 	}
 	return serve(ctx, cfg, log, tel, st, svc, ready)
 }
@@ -87,7 +105,12 @@ func openStore(ctx context.Context, cfg Config) (store.Store, error) {
 		}
 		return st, nil
 	case "postgres":
-		return nil, errors.New("--store=postgres: the PostgreSQL store is not wired into voltcastd yet")
+		// The DSN may hold a password: postgres.Open's errors never repeat it.
+		st, err := postgres.Open(ctx, cfg.StoreDSN, nil)
+		if err != nil {
+			return nil, fmt.Errorf("opening the PostgreSQL store: %w", err)
+		}
+		return st, nil
 	}
 	return nil, fmt.Errorf("unknown store %q", cfg.Store)
 }
@@ -103,7 +126,8 @@ func openStore(ctx context.Context, cfg Config) (store.Store, error) {
 //  4. close the gateway's client connection;
 //  5. shut down the tracer and meter providers (flushes spans);
 //  6. stop the persistence loop and flush estimator state (after every request is
-//     done, so no sample is applied after its state was saved);
+//     done, so no sample is applied after its state was saved), and stop the
+//     calibration fits, each writing its FAILED (INTERRUPTED) state;
 //  7. close the store, last, because step 6 writes to it.
 func serve(ctx context.Context, cfg Config, log *slog.Logger, tel *telemetry, st store.Store, svc *service.Service, ready listening) (err error) {
 	grpcLis, err := net.Listen("tcp", cfg.GRPCAddress)
@@ -223,6 +247,9 @@ func serve(ctx context.Context, cfg Config, log *slog.Logger, tel *telemetry, st
 	persistDone.Wait()
 	if err := svc.Flush(sctx); err != nil {
 		errs = append(errs, fmt.Errorf("flushing estimator state: %w", err))
+	}
+	if err := svc.Close(sctx); err != nil {
+		errs = append(errs, fmt.Errorf("stopping calibrations: %w", err))
 	}
 	if err := st.Close(); err != nil { // 7
 		errs = append(errs, fmt.Errorf("closing the store: %w", err))
