@@ -938,7 +938,8 @@ type PlanChargeResponse struct {
 	// Charge current of the constant-current phase, in amperes, given as a positive
 	// number (it flows into the pack).
 	ChargeCurrentAmps float64 `protobuf:"fixed64,2,opt,name=charge_current_amps,json=chargeCurrentAmps,proto3" json:"charge_current_amps,omitempty"`
-	// Time from start to the target state of charge.
+	// Time from start to the target state of charge (to the end of the charge when
+	// target_reached is false).
 	Duration *durationpb.Duration `protobuf:"bytes,3,opt,name=duration,proto3" json:"duration,omitempty"`
 	// When the target is reached (start_time + duration).
 	EndTime *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=end_time,json=endTime,proto3" json:"end_time,omitempty"`
@@ -1125,7 +1126,7 @@ type ChargePhase struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The phase kind.
 	Kind ChargePhaseKind `protobuf:"varint,1,opt,name=kind,proto3,enum=voltcast.v1.ChargePhaseKind" json:"kind,omitempty"`
-	// How long the phase lasts.
+	// How long the phase lasts; 0 for the open-ended lead-acid float phase.
 	Duration *durationpb.Duration `protobuf:"bytes,2,opt,name=duration,proto3" json:"duration,omitempty"`
 	// Pack current at the start of the phase, in amperes; negative (charge).
 	StartCurrentAmps float64 `protobuf:"fixed64,3,opt,name=start_current_amps,json=startCurrentAmps,proto3" json:"start_current_amps,omitempty"`
@@ -1386,9 +1387,12 @@ func (x *HealthPoint) GetResistanceFraction() float64 {
 // history is set.
 type AssessHealthRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// A stored battery, "batteries/{battery}", assessed from its stored health history.
+	// A stored battery, "batteries/{battery}", assessed from its stored health history
+	// (one point per persisted estimator state; points of equal equivalent full cycles,
+	// as a resting battery writes them, are merged into their mean).
 	Battery string `protobuf:"bytes,1,opt,name=battery,proto3" json:"battery,omitempty"`
-	// Ad-hoc health history, 2 to 100000 points, in increasing equivalent full cycles.
+	// Ad-hoc health history, 2 to 100000 points, in strictly increasing equivalent full
+	// cycles; observe_time on every point or on none.
 	History []*HealthPoint `protobuf:"bytes,2,rep,name=history,proto3" json:"history,omitempty"`
 	// End-of-life threshold on capacity_fraction, in (0, 1). Optional: 0 means 0.8 (80 %
 	// of rated capacity, common practice).
@@ -1448,17 +1452,19 @@ func (x *AssessHealthRequest) GetEndOfLifeCapacityFraction() float64 {
 	return 0
 }
 
-// AssessHealthResponse is the response of AssessHealth.
+// AssessHealthResponse is the response of AssessHealth. With fewer than five history
+// points (distinct equivalent full cycles) nothing is projected and notes say so.
 type AssessHealthResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// Latest capacity relative to rated.
+	// Latest capacity relative to rated (for a stored battery, its tracked state).
 	CapacityFraction float64 `protobuf:"fixed64,1,opt,name=capacity_fraction,json=capacityFraction,proto3" json:"capacity_fraction,omitempty"`
 	// Latest series resistance relative to new; 0 when unknown.
 	ResistanceFraction float64 `protobuf:"fixed64,2,opt,name=resistance_fraction,json=resistanceFraction,proto3" json:"resistance_fraction,omitempty"`
 	// Latest equivalent full cycles.
 	EquivalentFullCycles float64 `protobuf:"fixed64,3,opt,name=equivalent_full_cycles,json=equivalentFullCycles,proto3" json:"equivalent_full_cycles,omitempty"`
 	// Fitted capacity fade, as a fraction of rated capacity lost per 100 equivalent full
-	// cycles (positive when fading).
+	// cycles (positive when fading), the slope of the fitted trend at the latest point of
+	// the history.
 	FadePerHundredCycles float64 `protobuf:"fixed64,4,opt,name=fade_per_hundred_cycles,json=fadePerHundredCycles,proto3" json:"fade_per_hundred_cycles,omitempty"`
 	// Projected equivalent full cycles at end of life; 0 when no fade is detected.
 	EndOfLifeCycles float64 `protobuf:"fixed64,5,opt,name=end_of_life_cycles,json=endOfLifeCycles,proto3" json:"end_of_life_cycles,omitempty"`
