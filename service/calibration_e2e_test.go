@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"log/slog"
 	"math"
 	"net/http"
 	"strings"
@@ -13,6 +14,7 @@ import (
 
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/encoding/protojson"
 	"google.golang.org/protobuf/proto"
 
 	"github.com/voltcast/voltcast/model/cell"
@@ -327,6 +329,26 @@ func testCalibrations(t *testing.T, open opener) {
 		t.Errorf("type from a missing calibration: %v; want NOT_FOUND", err)
 	}
 
+	// REST: create (a fit that is cancelled at once), cancel, delete.
+	reqJSON, err := protojson.Marshal(&pb.CreateCalibrationRequest{CalibrationId: "cal-rest", Settings: settings, Tests: tests})
+	if err != nil {
+		t.Fatal(err)
+	}
+	code, body = e.do(t, "POST", "/v1/calibrations", string(reqJSON))
+	if st := body["state"]; code != http.StatusOK || body["name"] != "calibrations/cal-rest" || (st != "CALIBRATION_STATE_PENDING" && st != "CALIBRATION_STATE_RUNNING") {
+		t.Errorf("REST create = %d %.200v", code, body)
+	}
+	code, body = e.do(t, "POST", "/v1/calibrations/cal-rest:cancel", `{}`)
+	if code != http.StatusOK || body["state"] != "CALIBRATION_STATE_CANCELLED" {
+		t.Errorf("REST cancel = %d %.200v", code, body)
+	}
+	if code, body = e.do(t, "DELETE", "/v1/calibrations/cal-rest", ""); code != http.StatusOK {
+		t.Errorf("REST delete = %d %v", code, body)
+	}
+	if code, _ = e.do(t, "GET", "/v1/calibrations/cal-rest", ""); code != http.StatusNotFound {
+		t.Errorf("REST get after delete = %d; want 404", code)
+	}
+
 	// The worker pool (two workers, a queue of one): A and A2 run, B waits, C is
 	// refused before anything is stored.
 	for _, id := range []string{"cal-hold-a", "cal-hold-a2", "cal-b"} {
@@ -344,23 +366,6 @@ func testCalibrations(t *testing.T, open opener) {
 	if _, err := e.st.GetCalibration(ctx, store.DefaultTenant, "cal-c"); err == nil {
 		t.Errorf("a refused calibration was stored")
 	}
-	// Cancelling a running and a waiting calibration ends both CANCELLED; no type can
-	// be made from them.
-	for _, name := range []string{"calibrations/cal-hold-a2", "calibrations/cal-b"} {
-		cb, err := e.cal.CancelCalibration(ctx, &pb.CancelCalibrationRequest{Name: name})
-		if err != nil || cb.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_CANCELLED || cb.GetCalibration().GetEndTime() == nil {
-			t.Errorf("CancelCalibration(%s): %v, %v; want CANCELLED", name, cb, err)
-		}
-	}
-	code, body = e.do(t, "POST", "/v1/calibrations/cal-b:cancel", `{}`)
-	if code != http.StatusOK || body["state"] != "CALIBRATION_STATE_CANCELLED" {
-		t.Errorf("REST cancel of a cancelled calibration = %d %v; want 200 and unchanged", code, body)
-	}
-	_, err = e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "x", Calibration: "calibrations/cal-b"})
-	if ei := errorInfo(err); status.Code(err) != codes.FailedPrecondition || ei.GetReason() != service.ReasonNotReady {
-		t.Errorf("type from a cancelled calibration: %v; want FAILED_PRECONDITION NOT_READY", err)
-	}
-
 	// A calibration whose server died (a RUNNING row no job holds, not written for
 	// longer than the lease) is found FAILED, WORKER_LOST.
 	if _, err := e.st.CreateCalibration(ctx, store.DefaultTenant, store.Calibration{ID: "cal-dead", Status: store.CalibrationRunning}, ""); err != nil {
@@ -378,13 +383,42 @@ func testCalibrations(t *testing.T, open opener) {
 	if err != nil || dead.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_FAILED || dead.GetCalibration().GetError().GetReason() != "WORKER_LOST" {
 		t.Errorf("after its lease: %v, %v; want FAILED WORKER_LOST", dead, err)
 	}
-	// A job of this server renews its lease, so neither Get nor a sweep takes it.
-	if a, err := e.cal.GetCalibration(ctx, &pb.GetCalibrationRequest{Name: "calibrations/cal-hold-a"}); err != nil || a.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_RUNNING {
-		t.Errorf("running job after a lease: %v, %v; want RUNNING", a, err)
+	// Jobs of this server, running or waiting, renew their lease: another replica on
+	// the same store, sweeping as voltcastd does every half lease, takes only the dead
+	// one.
+	replica, err := service.New(service.Options{Store: e.st, Logger: slog.New(slog.DiscardHandler)})
+	if err != nil {
+		t.Fatal(err)
 	}
-	if n, err := e.svc.RecoverCalibrations(ctx, time.Now()); err != nil || n != 1 {
-		t.Errorf("RecoverCalibrations = %d, %v; want 1 (cal-dead2)", n, err)
+	if n, err := replica.RecoverCalibrations(ctx, time.Now().Add(-lim.CalibrationLease)); err != nil || n != 1 {
+		t.Errorf("replica's RecoverCalibrations = %d, %v; want 1 (cal-dead2)", n, err)
 	}
+	for name, want := range map[string]pb.CalibrationState{
+		"calibrations/cal-hold-a": pb.CalibrationState_CALIBRATION_STATE_RUNNING, "calibrations/cal-hold-a2": pb.CalibrationState_CALIBRATION_STATE_RUNNING,
+		"calibrations/cal-b": pb.CalibrationState_CALIBRATION_STATE_PENDING, "calibrations/cal-dead2": pb.CalibrationState_CALIBRATION_STATE_FAILED,
+	} {
+		if c, err := e.cal.GetCalibration(ctx, &pb.GetCalibrationRequest{Name: name}); err != nil || c.GetCalibration().GetState() != want {
+			t.Errorf("%s after a lease and a replica's sweep: %v, %v; want %v", name, c.GetCalibration().GetState(), err, want)
+		}
+	}
+
+	// Cancelling a running and a waiting calibration ends both CANCELLED; no type can
+	// be made from them.
+	for _, name := range []string{"calibrations/cal-hold-a2", "calibrations/cal-b"} {
+		cb, err := e.cal.CancelCalibration(ctx, &pb.CancelCalibrationRequest{Name: name})
+		if err != nil || cb.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_CANCELLED || cb.GetCalibration().GetEndTime() == nil {
+			t.Errorf("CancelCalibration(%s): %v, %v; want CANCELLED", name, cb, err)
+		}
+	}
+	code, body = e.do(t, "POST", "/v1/calibrations/cal-b:cancel", `{}`)
+	if code != http.StatusOK || body["state"] != "CALIBRATION_STATE_CANCELLED" {
+		t.Errorf("REST cancel of a cancelled calibration = %d %v; want 200 and unchanged", code, body)
+	}
+	_, err = e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "x", Calibration: "calibrations/cal-b"})
+	if ei := errorInfo(err); status.Code(err) != codes.FailedPrecondition || ei.GetReason() != service.ReasonNotReady {
+		t.Errorf("type from a cancelled calibration: %v; want FAILED_PRECONDITION NOT_READY", err)
+	}
+
 
 	// Shutdown interrupts the running fit: it ends FAILED, INTERRUPTED; new ones are
 	// refused.

@@ -390,9 +390,8 @@ func (s *Service) createCalibration(ctx context.Context, req *pb.CreateCalibrati
 		// A replay of an earlier request id: that call's calibration, and no new job.
 		return s.calibrationToPB(c)
 	}
-	job.version = c.Version
 	job.problem, job.settings, job.tests = prob, settings, tests
-	s.cal.start(s, job)
+	s.cal.start(s, job, c)
 	started = true
 	return s.calibrationToPB(c)
 }

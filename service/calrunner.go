@@ -30,8 +30,9 @@ import (
 //
 //   - On shutdown ([Service.Close]) every job of this server is cancelled and ends
 //     FAILED with reason INTERRUPTED ("submit it again").
-//   - A running job renews a lease by writing its row (a heartbeat, compare-and-swap
-//     on the version) every Limits.CalibrationLease/4. A PENDING or RUNNING row that
+//   - A job, waiting or running, renews a lease by writing its row (a heartbeat,
+//     compare-and-swap on the version) every Limits.CalibrationLease/4. A PENDING or
+//     RUNNING row that
 //     no job of this server holds and that has not been written for longer than the
 //     lease belongs to a server that died: GetCalibration, the periodic sweep in
 //     [Service.Run] and [Service.RecoverCalibrations] mark it FAILED with reason
@@ -62,8 +63,10 @@ type calJob struct {
 	ctx      context.Context
 	cancel   context.CancelCauseFunc
 
-	mu      sync.Mutex
-	version int64 // version of the row as this job last wrote or read it
+	finished chan struct{} // closed when the job is done
+
+	mu  sync.Mutex
+	row store.Calibration // the row as this job last wrote or read it (Version included)
 }
 
 // calRunner holds this server's calibration jobs.
@@ -99,7 +102,7 @@ func (r *calRunner) reserve(id string) (*calJob, error) {
 			Msg: fmt.Sprintf("all %d calibration workers are busy and %d calibrations wait; retry later", r.workers, r.queue)}
 	}
 	ctx, cancel := context.WithCancelCause(context.Background())
-	j := &calJob{id: id, ctx: ctx, cancel: cancel}
+	j := &calJob{id: id, ctx: ctx, cancel: cancel, finished: make(chan struct{})}
 	r.jobs[id] = j
 	return j, nil
 }
@@ -114,11 +117,14 @@ func (r *calRunner) release(j *calJob) {
 	j.cancel(nil)
 }
 
-// start queues a reserved job and starts the workers on first use. The channel has
-// room for every reserved job, so this never blocks.
-func (r *calRunner) start(s *Service, j *calJob) {
+// start queues a reserved job, whose row c was just created, starts its heartbeat,
+// and starts the workers on first use. The channel has room for every reserved job,
+// so this never blocks.
+func (r *calRunner) start(s *Service, j *calJob, c store.Calibration) {
+	j.row = c
 	r.mu.Lock()
 	defer r.mu.Unlock()
+	r.wg.Go(func() { s.heartbeat(j) })
 	if !r.started {
 		r.started = true
 		for range r.workers {
@@ -161,6 +167,7 @@ func (r *calRunner) done(j *calJob) {
 	if r.jobs[j.id] == j {
 		delete(r.jobs, j.id)
 	}
+	close(j.finished)
 	j.cancel(nil)
 }
 
@@ -188,9 +195,16 @@ func (s *Service) Close(ctx context.Context) error {
 	}
 }
 
-// writeCalibration writes c by compare-and-swap on the job's version and records the
-// new version. ctx should outlive the fit (the final write must happen even when the
-// fit was cancelled).
+// writeCalibration writes c by compare-and-swap on the version of the job's row and
+// records the new row. ctx should outlive the fit (the final write must happen even
+// when the fit was cancelled).
+func (s *Service) writeCalibration(ctx context.Context, j *calJob, c store.Calibration) error {
+	j.mu.Lock()
+	defer j.mu.Unlock()
+	return s.writeLocked(ctx, j, c)
+}
+
+// writeLocked is writeCalibration with j.mu held.
 //
 // A write that fails may still have been committed (a timeout after the database
 // applied it), leaving the job's version stale. So on any failure but NotFound the
@@ -198,17 +212,15 @@ func (s *Service) Close(ctx context.Context) error {
 // written it (others only end a row: cancel, expire), so its version is the job's own
 // and the write is retried once with it. A row that has ended stays as it is, and the
 // error (ErrConflict) says so.
-func (s *Service) writeCalibration(ctx context.Context, j *calJob, c store.Calibration) error {
-	j.mu.Lock()
-	defer j.mu.Unlock()
+func (s *Service) writeLocked(ctx context.Context, j *calJob, c store.Calibration) error {
 	var err error
 	for attempt := 0; attempt < 2; attempt++ {
 		start := time.Now()
 		var u store.Calibration
-		u, err = s.store.UpdateCalibration(ctx, tenant(ctx), c, j.version)
+		u, err = s.store.UpdateCalibration(ctx, tenant(ctx), c, j.row.Version)
 		s.metrics.observeStore(ctx, "UpdateCalibration", start)
 		if err == nil {
-			j.version = u.Version
+			j.row = u
 			return nil
 		}
 		if errors.Is(err, store.ErrNotFound) {
@@ -221,7 +233,7 @@ func (s *Service) writeCalibration(ctx context.Context, j *calJob, c store.Calib
 		if terminal(cur.Status) {
 			return fmt.Errorf("calibration %s ended %s meanwhile: %w", j.id, cur.Status, store.ErrConflict)
 		}
-		j.version = cur.Version
+		j.row.Version = cur.Version
 	}
 	return err
 }
@@ -233,32 +245,21 @@ func (s *Service) runCalibration(j *calJob) {
 	// final state must still be written.
 	wctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 	defer cancel()
-	row := func() store.Calibration {
-		c, err := s.store.GetCalibration(wctx, tenant(wctx), j.id)
-		if err != nil {
-			return store.Calibration{}
-		}
-		return c
-	}
-	c := row()
-	if c.ID == "" || terminal(c.Status) {
-		return // deleted or cancelled before it started
-	}
+	j.mu.Lock()
+	c := j.row
+	j.mu.Unlock()
 	if j.ctx.Err() == nil {
 		c.Status = store.CalibrationRunning
 		if err := s.writeCalibration(wctx, j, c); err != nil {
-			s.log.WarnContext(wctx, "calibration: cannot mark running; dropping the job", "calibration", j.id, "error", err.Error())
-			return
+			if !errors.Is(err, store.ErrConflict) && !errors.Is(err, store.ErrNotFound) {
+				s.log.WarnContext(wctx, "calibration: cannot mark running; dropping the job", "calibration", j.id, "error", err.Error())
+			}
+			return // deleted or ended (cancelled, expired) before it started
 		}
-		hbDone := make(chan struct{})
-		var hb sync.WaitGroup
-		hb.Go(func() { s.heartbeat(j, c, hbDone) })
 		if s.calHook != nil {
 			s.calHook(j.id)
 		}
 		res, iterations, err := runFit(j)
-		close(hbDone)
-		hb.Wait()
 		if err == nil {
 			c.Status, c.Error = store.CalibrationSucceeded, ""
 			if c.Report, err = calReportJSON(j, res, iterations); err == nil {
@@ -313,20 +314,26 @@ func runFit(j *calJob) (*fit.Result, int, error) {
 	return res, iterations, err
 }
 
-// heartbeat renews the job's lease until done closes. When the row has moved
-// (cancelled, deleted, or declared lost by another replica) it stops the fit.
-func (s *Service) heartbeat(j *calJob, c store.Calibration, done <-chan struct{}) {
+// heartbeat renews the job's lease, rewriting its current row, from when it is queued
+// until it is done. When the row has ended or gone (cancelled, deleted, or declared
+// lost by another replica) it stops the job.
+func (s *Service) heartbeat(j *calJob) {
 	t := time.NewTicker(s.cal.lease / 4)
 	defer t.Stop()
 	for {
 		select {
-		case <-done:
+		case <-j.finished:
 			return
 		case <-j.ctx.Done():
 			return
 		case <-t.C:
 			ctx, cancel := context.WithTimeout(j.ctx, s.cal.lease/2)
-			err := s.writeCalibration(ctx, j, c)
+			j.mu.Lock()
+			var err error
+			if !terminal(j.row.Status) {
+				err = s.writeLocked(ctx, j, j.row)
+			}
+			j.mu.Unlock()
 			cancel()
 			switch {
 			case errors.Is(err, store.ErrConflict), errors.Is(err, store.ErrNotFound):
