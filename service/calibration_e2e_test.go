@@ -419,7 +419,6 @@ func testCalibrations(t *testing.T, open opener) {
 		t.Errorf("type from a cancelled calibration: %v; want FAILED_PRECONDITION NOT_READY", err)
 	}
 
-
 	// Shutdown interrupts the running fit: it ends FAILED, INTERRUPTED; new ones are
 	// refused.
 	closed := make(chan error, 1)
