@@ -166,7 +166,7 @@ const (
 	WarnWeakDeltaV       WarningCode = "weak-delta-v"         // nickel below 0.5 C: −ΔV is unreliable
 	WarnPartialNickel    WarningCode = "partial-nickel"       // nickel chargers cannot stop at a partial SOC
 	WarnPartialLead      WarningCode = "partial-lead-acid"    // lead-acid left partly charged sulphates
-	WarnNotFull          WarningCode = "not-full"             // the charge does not finish within the horizon
+	WarnNotFull          WarningCode = "not-full"             // the charge ends before full, or not within the horizon
 	WarnVoltageCeiling   WarningCode = "voltage-ceiling"      // nickel charge stopped at the voltage ceiling
 )
 
@@ -203,9 +203,11 @@ type Result struct {
 	// a lead-acid plan to full ends with an open-ended float phase.
 	Phases []Phase
 	// Target is where the target SOC is reached (a completed full charge reaches any
-	// target). Full is where the charge terminates; Full.Reached is false when it ends
-	// without the cell being full (charger voltage too low, nickel voltage ceiling or
-	// backup timer before full) or does not end within Settings.MaxSeconds.
+	// target); when Target.Reached is false its figures are those of the end of the
+	// charge (the same as Full's). Full is where the charge terminates; Full.Reached is
+	// false when it ends without the cell being full (charger voltage too low, nickel
+	// voltage ceiling or backup timer before full) or does not end within
+	// Settings.MaxSeconds.
 	Target, Full Totals
 	// Termination says what ended the full charge.
 	Termination Termination
@@ -473,7 +475,11 @@ func precheck(req *Request, lim *limits, target float64, res *Result) {
 // postcheck adds the warnings that follow from the simulation.
 func postcheck(req *Request, lim *limits, target float64, out outcome, res *Result) {
 	if !out.full.Reached {
-		res.warn(WarnNotFull, "the charge does not finish within the simulated horizon")
+		if out.termination == TerminationNone {
+			res.warn(WarnNotFull, "the charge does not finish within the simulated horizon")
+		} else {
+			res.warn(WarnNotFull, "the charge ends (%s) at %.1f %% SOC, before the cell is full", out.termination, 100*out.full.SOC)
+		}
 	}
 	if !out.target.Reached && req.State.SOC < target {
 		res.warn(WarnTargetNotReached, "the charge ends at %.1f %% SOC, below the %.1f %% target", 100*out.full.SOC, 100*target)

@@ -399,6 +399,23 @@ func TestChargerVoltageLow(t *testing.T) {
 	if !hasWarning(res, WarnTargetNotReached) || res.Full.SOC > 0.95 {
 		t.Errorf("ends at SOC %.3f with warnings %+v; want well short of full", res.Full.SOC, res.Warnings)
 	}
+	// A missed target reports where the charge ends, not zeros.
+	if res.Target.SOC != res.Full.SOC || res.Target.Seconds != res.Full.Seconds || res.Target.ChargeAh != res.Full.ChargeAh {
+		t.Errorf("missed target %+v; want the end of the charge %+v", res.Target, res.Full)
+	}
+
+	// A charger below the rest voltage cannot charge at all: the plan ends at once, at
+	// the starting SOC, and says so rather than blaming the horizon.
+	res = mustPlan(t, &Request{Pack: pack(t, typ, 1, 1), State: cell.State{SOC: 0.5}, TemperatureCelsius: 25,
+		MaxCurrentAmps: 1, MaxVoltageVolts: 3, Efficiency: 0.9}, nil)
+	if res.Target.Reached || res.Target.SOC != 0.5 || res.Full.SOC != 0.5 || res.Full.ChargeAh != 0 {
+		t.Errorf("3 V charger on a 3.74 V cell: target %+v, full %+v; want both unreached at 50 %%", res.Target, res.Full)
+	}
+	for _, w := range res.Warnings {
+		if w.Code == WarnNotFull && strings.Contains(w.Message, "horizon") {
+			t.Errorf("not-full warning %q blames the horizon; the charge ended on %s", w.Message, res.Termination)
+		}
+	}
 }
 
 func TestAlreadyAtTarget(t *testing.T) {

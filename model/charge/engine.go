@@ -466,6 +466,10 @@ func (e *engine) simulate(a float64, targetOnly bool) outcome {
 		if e.record && !r.cut && len(r.out.phases) > 0 {
 			r.cut = true
 		}
+	} else if !r.out.target.Reached {
+		// Missed: the target's figures are those of the end of the charge, not zeros.
+		r.out.target = r.out.full
+		r.out.target.Reached = false
 	}
 	if full && e.lim.method == cell.ChargeThreeStage && e.record && e.target >= 1 {
 		// Float holds the battery full, open-ended.
