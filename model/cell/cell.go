@@ -42,6 +42,16 @@ const (
 	ChemistryZincCarbon Chemistry = "zinc-carbon"    // primary Leclanché cell
 )
 
+// Primary reports whether c is a primary (non-rechargeable) chemistry of the set above,
+// one that must never be charged whatever a parameter file says.
+func (c Chemistry) Primary() bool {
+	switch c {
+	case ChemistryAlkaline, ChemistryLiMnO2, ChemistryLiSOCl2, ChemistryZincCarbon:
+		return true
+	}
+	return false
+}
+
 // ChargeMethod names how a chemistry is charged.
 type ChargeMethod string
 
@@ -271,6 +281,10 @@ func (t *Type) Validate() error {
 	case ChargeNone, ChargeCCCV, ChargeThreeStage, ChargeNickel:
 	default:
 		return Invalid("charge_method", "unknown charge method %q (want none, cc-cv, three-stage or nickel)", t.ChargeMethod)
+	}
+	if t.Chemistry.Primary() && t.Rechargeable() {
+		return Invalid("charge_method", "%s is a primary (non-rechargeable) chemistry, which must never be charged; want none, got %s",
+			t.Chemistry, t.ChargeMethod)
 	}
 	if !Finite(t.CapacityAh) || t.CapacityAh <= 0 {
 		return Invalid("capacity_amp_hours", "must be positive and finite, got %g", t.CapacityAh)

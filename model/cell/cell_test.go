@@ -153,6 +153,9 @@ func TestValidateRejects(t *testing.T) {
 		{"rc_branches", func(t *Type) { t.Branches = make([]Branch, 4) }},
 		{"ocv", func(t *Type) { t.OCV = nil }},
 		{"charge_method", func(t *Type) { t.ChargeMethod = "trickle" }},
+		// A primary chemistry must never be charged, whatever charge method a file gives it.
+		{"charge_method", func(t *Type) { t.Chemistry = ChemistryAlkaline }},
+		{"charge_method", func(t *Type) { t.Chemistry = ChemistryLiMnO2; t.ChargeMethod = ChargeNickel }},
 		{"limits.charge_voltage_volts", func(t *Type) { t.Limits.ChargeVolts = 2.9 }},
 		{"limits.charge_min_celsius", func(t *Type) { t.Limits.ChargeMinCelsius = -80 }},
 		{"coulombic_efficiency", func(t *Type) { t.CoulombicEfficiency = 1.2 }},
