@@ -161,7 +161,7 @@ func TestCalibrations(t *testing.T) { eachStore(t, testCalibrations) }
 func testCalibrations(t *testing.T, open opener) {
 	typ, tests := calibrationTests(t)
 	// Room for the two tests and one more pulse test, not two more.
-	lim := service.Limits{CalibrationWorkers: 2, CalibrationQueue: 1, CalibrationLease: 400 * time.Millisecond,
+	lim := service.Limits{CalibrationWorkers: 2, CalibrationQueue: 1, CalibrationLease: 1200 * time.Millisecond,
 		MaxCalibrationSamples: len(tests[0].TimeOffsetsSeconds) + 2*len(tests[1].TimeOffsetsSeconds)}
 	e := newEnv(t, open, lim)
 	ctx := context.Background()
@@ -182,10 +182,17 @@ func testCalibrations(t *testing.T, open opener) {
 	if s := created.GetCalibration().GetState(); s != pb.CalibrationState_CALIBRATION_STATE_PENDING && s != pb.CalibrationState_CALIBRATION_STATE_RUNNING {
 		t.Errorf("new calibration is %v; want PENDING or RUNNING", s)
 	}
-	// A retried request id returns the first calibration and starts nothing.
-	again, err := e.cal.CreateCalibration(ctx, &pb.CreateCalibrationRequest{CalibrationId: "cal-other", Settings: settings, Tests: tests, RequestId: "req-1"})
-	if err != nil || again.GetCalibration().GetName() != "calibrations/cal-ok" {
-		t.Errorf("replayed request id: %v, %v; want calibrations/cal-ok", again, err)
+	// A retried request id returns the first calibration and starts nothing, whether
+	// the retry repeats the id or not, while the first still runs.
+	for _, id := range []string{"cal-ok", "cal-other", ""} {
+		again, err := e.cal.CreateCalibration(ctx, &pb.CreateCalibrationRequest{CalibrationId: id, Settings: settings, Tests: tests, RequestId: "req-1"})
+		if err != nil || again.GetCalibration().GetName() != "calibrations/cal-ok" {
+			t.Errorf("replayed request id (calibration_id %q): %v, %v; want calibrations/cal-ok", id, again, err)
+		}
+	}
+	// The same id without the request id is taken.
+	if _, err := e.cal.CreateCalibration(ctx, &pb.CreateCalibrationRequest{CalibrationId: "cal-ok", Settings: settings, Tests: tests}); status.Code(err) != codes.AlreadyExists {
+		t.Errorf("create with a taken id: %v; want ALREADY_EXISTS", err)
 	}
 	got := waitCalibration(t, e, "calibrations/cal-ok")
 	if got.GetState() != pb.CalibrationState_CALIBRATION_STATE_SUCCEEDED {
@@ -378,7 +385,7 @@ func testCalibrations(t *testing.T, open opener) {
 	if err != nil || dead.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_RUNNING {
 		t.Errorf("within its lease: %v, %v; want RUNNING", dead, err)
 	}
-	time.Sleep(lim.CalibrationLease + 100*time.Millisecond)
+	time.Sleep(lim.CalibrationLease + 200*time.Millisecond)
 	dead, err = e.cal.GetCalibration(ctx, &pb.GetCalibrationRequest{Name: "calibrations/cal-dead"})
 	if err != nil || dead.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_FAILED || dead.GetCalibration().GetError().GetReason() != "WORKER_LOST" {
 		t.Errorf("after its lease: %v, %v; want FAILED WORKER_LOST", dead, err)

@@ -74,9 +74,10 @@ type calRunner struct {
 	workers, queue int
 	lease          time.Duration
 
-	mu      sync.Mutex
-	jobs    map[string]*calJob // reserved, queued or running, by id
-	ch      chan *calJob
+	mu       sync.Mutex
+	jobs     map[string]*calJob // queued or running, by id
+	reserved int                // slots taken by calls that have not started their job yet
+	ch       chan *calJob
 	closed  bool
 	started bool
 	wg      sync.WaitGroup
@@ -87,33 +88,30 @@ func newCalRunner(l Limits) *calRunner {
 		jobs: map[string]*calJob{}, ch: make(chan *calJob, l.CalibrationWorkers+l.CalibrationQueue)}
 }
 
-// reserve takes a slot for a new job, or fails with RESOURCE_EXHAUSTED (queue full),
-// UNAVAILABLE (shutting down) or ALREADY_EXISTS (a job of that id runs here).
+// reserve takes a slot for a new job, before anything is stored, or fails with
+// RESOURCE_EXHAUSTED (queue full) or UNAVAILABLE (shutting down). The caller either
+// starts the job ([calRunner.start]) or releases the slot ([calRunner.release]).
 func (r *calRunner) reserve(id string) (*calJob, error) {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	switch {
 	case r.closed:
 		return nil, &Error{Code: codes.Unavailable, Reason: ReasonUnavailable, Msg: "the server is shutting down; submit the calibration to another replica or retry"}
-	case r.jobs[id] != nil:
-		return nil, &Error{Code: codes.AlreadyExists, Reason: ReasonAlreadyExists, Msg: "resource already exists", Resource: calibrationName(id)}
-	case len(r.jobs) >= r.workers+r.queue:
+	case len(r.jobs)+r.reserved >= r.workers+r.queue:
 		return nil, &Error{Code: codes.ResourceExhausted, Reason: ReasonQueueFull,
 			Msg: fmt.Sprintf("all %d calibration workers are busy and %d calibrations wait; retry later", r.workers, r.queue)}
 	}
+	r.reserved++
 	ctx, cancel := context.WithCancelCause(context.Background())
-	j := &calJob{id: id, ctx: ctx, cancel: cancel, finished: make(chan struct{})}
-	r.jobs[id] = j
-	return j, nil
+	return &calJob{id: id, ctx: ctx, cancel: cancel, finished: make(chan struct{})}, nil
 }
 
-// release gives up a reserved slot whose job never started.
+// release gives up a reserved slot whose job never started (the request failed, or
+// replayed an earlier request id).
 func (r *calRunner) release(j *calJob) {
 	r.mu.Lock()
 	defer r.mu.Unlock()
-	if r.jobs[j.id] == j {
-		delete(r.jobs, j.id)
-	}
+	r.reserved--
 	j.cancel(nil)
 }
 
@@ -124,6 +122,8 @@ func (r *calRunner) start(s *Service, j *calJob, c store.Calibration) {
 	j.row = c
 	r.mu.Lock()
 	defer r.mu.Unlock()
+	r.reserved--
+	r.jobs[j.id] = j
 	r.wg.Go(func() { s.heartbeat(j) })
 	if !r.started {
 		r.started = true
@@ -264,7 +264,7 @@ func (s *Service) runCalibration(j *calJob) {
 			c.Status, c.Error = store.CalibrationSucceeded, ""
 			if c.Report, err = calReportJSON(j, res, iterations); err == nil {
 				err = s.writeCalibration(wctx, j, c)
-				if err != nil {
+				if err != nil && !errors.Is(err, store.ErrConflict) && !errors.Is(err, store.ErrNotFound) {
 					s.log.WarnContext(wctx, "calibration: result not written", "calibration", j.id, "error", err.Error())
 				}
 				return
