@@ -78,9 +78,9 @@ type calRunner struct {
 	jobs     map[string]*calJob // queued or running, by id
 	reserved int                // slots taken by calls that have not started their job yet
 	ch       chan *calJob
-	closed  bool
-	started bool
-	wg      sync.WaitGroup
+	closed   bool
+	started  bool
+	wg       sync.WaitGroup
 }
 
 func newCalRunner(l Limits) *calRunner {
