@@ -117,13 +117,21 @@ func (r *calRunner) release(j *calJob) {
 
 // start queues a reserved job, whose row c was just created, starts its heartbeat,
 // and starts the workers on first use. The channel has room for every reserved job,
-// so this never blocks.
+// so this never blocks. When Close ran since the job was reserved, the job ends at
+// once, FAILED (INTERRUPTED), written by the caller.
 func (r *calRunner) start(s *Service, j *calJob, c store.Calibration) {
 	j.row = c
 	r.mu.Lock()
-	defer r.mu.Unlock()
 	r.reserved--
 	r.jobs[j.id] = j
+	if r.closed {
+		// No new goroutines after Close (its Wait may be under way).
+		r.mu.Unlock()
+		j.cancel(errCalShutdown)
+		s.runCalibration(j)
+		return
+	}
+	defer r.mu.Unlock()
 	r.wg.Go(func() { s.heartbeat(j) })
 	if !r.started {
 		r.started = true
@@ -134,12 +142,6 @@ func (r *calRunner) start(s *Service, j *calJob, c store.Calibration) {
 				}
 			})
 		}
-	}
-	if r.closed {
-		// Close ran between reserve and start: the job ends as interrupted.
-		j.cancel(errCalShutdown)
-		r.wg.Go(func() { s.runCalibration(j) })
-		return
 	}
 	r.ch <- j
 }
