@@ -142,6 +142,14 @@ func remoteLoad(fs *flag.FlagSet, current, power, resistance float64, profile st
 	if len(given) != 1 {
 		return nil, "", fmt.Errorf("%w: give exactly one load: --current-amps, --power-watts, --resistance-ohms or --profile", errUsage)
 	}
+	for _, f := range []struct {
+		name string
+		v    float64
+	}{{"current-amps", current}, {"power-watts", power}, {"resistance-ohms", resistance}} {
+		if set[f.name] && (math.IsNaN(f.v) || math.IsInf(f.v, 0)) {
+			return nil, "", fmt.Errorf("%w: --%s must be a finite number, got %g", errUsage, f.name, f.v)
+		}
+	}
 	switch {
 	case set["current-amps"]:
 		return &pb.Load{Kind: &pb.Load_CurrentAmps{CurrentAmps: current}}, fmt.Sprintf("constant current %g A", current), nil
@@ -157,8 +165,11 @@ func remoteLoad(fs *flag.FlagSet, current, power, resistance float64, profile st
 	dc := &pb.DutyCycle{}
 	total := 0.0
 	for _, sg := range segs {
-		if math.IsInf(sg.Duration, 0) {
+		if math.IsInf(sg.Duration, 0) || math.IsNaN(sg.Duration) {
 			return nil, "", fmt.Errorf("%w: profile %s: every step needs a finite duration", errUsage, profile)
+		}
+		if math.IsInf(sg.Value, 0) || math.IsNaN(sg.Value) {
+			return nil, "", fmt.Errorf("%w: profile %s: every step needs a finite value", errUsage, profile)
 		}
 		st := &pb.DutyCycleStep{Duration: durationpb.New(time.Duration(sg.Duration * float64(time.Second)))}
 		switch sg.Kind {
@@ -208,6 +219,20 @@ func runChargeRemote(ctx context.Context, args []string, stdout, stderr io.Write
 	}
 	if *deadline < 0 {
 		return fmt.Errorf("%w: --deadline must not be negative, got %s", errUsage, *deadline)
+	}
+	if t := *target; math.IsNaN(t) || t <= 0 || t > 1 {
+		return fmt.Errorf("%w: --target-soc must be a fraction in (0, 1], got %g", errUsage, t)
+	}
+	for _, f := range []struct {
+		name string
+		v    float64
+	}{{"charger-current-amps", *current}, {"charger-power-watts", *power}} {
+		if math.IsNaN(f.v) || math.IsInf(f.v, 0) || f.v < 0 {
+			return fmt.Errorf("%w: --%s must be a finite, non-negative number (0: none), got %g", errUsage, f.name, f.v)
+		}
+	}
+	if e := *eff; math.IsNaN(e) || e <= 0 || e > 1 {
+		return fmt.Errorf("%w: --charger-efficiency must be in (0, 1], got %g", errUsage, e)
 	}
 	start := time.Now()
 	if *startAt != "" {

@@ -218,6 +218,22 @@ func batteriesCreate(ctx context.Context, args []string, stdout, stderr io.Write
 	if err != nil {
 		return err
 	}
+	// The server checks the counts; refuse here only what the int32 conversion would
+	// wrap (4294967297 would become 1).
+	for _, f := range []struct {
+		name string
+		v    int
+	}{{"series", *series}, {"parallel", *parallel}} {
+		if int(int32(f.v)) != f.v {
+			return fmt.Errorf("%w: --%s must be 1 to 1000 cells, got %d", errUsage, f.name, f.v)
+		}
+	}
+	if err := checkGivenNaN(fs, []string{"initial-soc"}, *initial); err != nil {
+		return err
+	}
+	if v := *initial; !math.IsNaN(v) && (v < 0 || v > 1) {
+		return fmt.Errorf("%w: --initial-soc must be a fraction 0–1, got %g", errUsage, v)
+	}
 	b := &pb.Battery{BatteryType: typ, SeriesCount: int32(*series), ParallelCount: int32(*parallel), DisplayName: *display, Labels: ls}
 	if !math.IsNaN(*initial) {
 		b.InitialStateOfCharge = initial

@@ -63,6 +63,9 @@ func runEstimate(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	if *in == "" || *out == "" {
 		return fmt.Errorf("%w: --in and --out are required", errUsage)
 	}
+	if err := checkGivenNaN(fs, []string{"initial-soc", "temperature-celsius"}, *initial, *celsius); err != nil {
+		return err
+	}
 	if !math.IsNaN(*initial) {
 		if err := cell.CheckSOC("--initial-soc", *initial); err != nil {
 			return fmt.Errorf("%w: %v", errUsage, err)

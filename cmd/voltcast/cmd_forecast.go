@@ -97,6 +97,9 @@ func runForecast(ctx context.Context, args []string, stdout, stderr io.Writer) e
 	if !cell.Finite(*horizonH) || *horizonH <= 0 || *horizonH > 100000 {
 		return fmt.Errorf("%w: --horizon-hours must be in (0, 100000], got %g", errUsage, *horizonH)
 	}
+	if *traceOut == "-" && *asJSON {
+		return fmt.Errorf("%w: --trace-out - and --json would both write to standard output; give --trace-out a file", errUsage)
+	}
 	n := *tracePoints
 	if *traceOut != "" && n == 0 {
 		n = 200
@@ -141,7 +144,12 @@ func runForecast(ctx context.Context, args []string, stdout, stderr io.Writer) e
 		return enc.Encode(out)
 	}
 	if *traceOut == "-" {
-		return nil // the CSV owns standard output
+		// The CSV owns standard output; the warnings and the caution still reach the user.
+		for _, m := range res.Warnings {
+			fmt.Fprintln(stderr, "warning:", m)
+		}
+		fmt.Fprintln(stderr, dischargeCaution)
+		return nil
 	}
 	p := sp.Pack
 	w := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', 0)

@@ -180,7 +180,7 @@ func TestForecastErrors(t *testing.T) {
 		{append(ok[:6:6], "--current-amps", "NaN"), 1, "must be finite"},
 		{append(ok[:6:6], "--current-amps", "+Inf"), 1, "must be finite"},
 		{[]string{"--type", "generic-nmc-18650", "--soc", "1.5", "--temperature-celsius", "25", "--current-amps", "1"}, 1, "state of charge"},
-		{[]string{"--type", "generic-nmc-18650", "--soc", "NaN", "--temperature-celsius", "25", "--current-amps", "1"}, 2, "--soc is required"},
+		{[]string{"--type", "generic-nmc-18650", "--soc", "NaN", "--temperature-celsius", "25", "--current-amps", "1"}, 2, "--soc must be a number, got NaN"},
 		{[]string{"--type", "generic-nmc-18650", "--soc", "0.5", "--temperature-celsius", "150", "--current-amps", "1"}, 1, "temperature"},
 		{[]string{"--type", "generic-nmc-18650", "--soc", "0.5", "--current-amps", "1"}, 2, "--temperature-celsius is required"},
 		{[]string{"--type", "no-such-cell", "--soc", "0.5", "--temperature-celsius", "25", "--current-amps", "1"}, 2, "no-such-cell"},

@@ -98,6 +98,9 @@ func runIngest(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	}
 	opt := &labdata.Options{Sign: cs}
 	sendTemps := true
+	if _, err := optionalCelsius(fs, *celsius); err != nil {
+		return err
+	}
 	if math.IsNaN(*celsius) {
 		placeholder := 25.0 // never sent: a log without temperatures sends none
 		opt.DefaultCelsius = &placeholder

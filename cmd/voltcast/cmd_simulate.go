@@ -22,6 +22,7 @@ import (
 	"gonum.org/v1/plot/vg/vgsvg"
 
 	"github.com/voltcast/voltcast/model/cell"
+	"github.com/voltcast/voltcast/model/charge"
 	"github.com/voltcast/voltcast/model/sim"
 )
 
@@ -79,6 +80,10 @@ func addPackFlags(fs *flag.FlagSet, repeat bool) *packFlags {
 // problem builds the simulation problem the flags describe, and a short description of
 // the load.
 func (f *packFlags) problem() (*sim.Problem, string, error) {
+	// Both default to NaN to mean "not given"; a NaN typed in is named as such.
+	if err := checkGivenNaN(f.fs, []string{"soc", "temperature-celsius"}, *f.soc, *f.celsius); err != nil {
+		return nil, "", err
+	}
 	if math.IsNaN(*f.soc) {
 		return nil, "", fmt.Errorf("%w: --soc is required (a fraction 0–1)", errUsage)
 	}
@@ -219,20 +224,53 @@ func readProfile(path string) ([]sim.Segment, error) {
 
 // simulateSummary is the JSON form of a simulation's outcome (voltcast simulate --json).
 type simulateSummary struct {
-	Type               string   `json:"type"`
-	Series             int      `json:"series"`
-	Parallel           int      `json:"parallel"`
-	Load               string   `json:"load"`
-	Status             string   `json:"status"`
-	DurationSeconds    float64  `json:"duration_seconds"`
-	ChargeAmpHours     float64  `json:"charge_amp_hours"`
-	EnergyWattHours    float64  `json:"energy_watt_hours"`
-	FinalStateOfCharge float64  `json:"final_state_of_charge"`
-	FinalVoltageVolts  float64  `json:"final_voltage_volts"`
-	CutoffVoltageVolts float64  `json:"cutoff_voltage_volts"`
-	SampleCount        int      `json:"sample_count"`
-	Steps              int      `json:"steps"`
-	Cautions           []string `json:"cautions"`
+	Type               string  `json:"type"`
+	Series             int     `json:"series"`
+	Parallel           int     `json:"parallel"`
+	Load               string  `json:"load"`
+	Status             string  `json:"status"`
+	DurationSeconds    float64 `json:"duration_seconds"`
+	ChargeAmpHours     float64 `json:"charge_amp_hours"`
+	EnergyWattHours    float64 `json:"energy_watt_hours"`
+	FinalStateOfCharge float64 `json:"final_state_of_charge"`
+	FinalVoltageVolts  float64 `json:"final_voltage_volts"`
+	CutoffVoltageVolts float64 `json:"cutoff_voltage_volts"`
+	SampleCount        int     `json:"sample_count"`
+	Steps              int     `json:"steps"`
+	// Warnings are conditions of this run to show (charging outside the chemistry's
+	// charge window or above its charge voltage); never null.
+	Warnings []string `json:"warnings"`
+	// Cautions are the standing safety notes: the discharge caution always, the
+	// chemistry's charge cautions when the load charges the pack.
+	Cautions []string `json:"cautions"`
+}
+
+// simulateNotes returns the warnings and cautions for a simulation: the discharge
+// caution always; when the load charges the pack (negative current), the chemistry's
+// charge cautions, and a warning for charging outside its charge temperature window or
+// above its charge voltage (per cell, at the recorded samples).
+func simulateNotes(prob *sim.Problem, samples []sim.Sample) (warnings, cautions []string) {
+	warnings, cautions = []string{}, []string{dischargeCaution}
+	t := prob.Pack.Type
+	charging, maxVolts := false, math.Inf(-1)
+	for _, s := range samples {
+		if s.Amps < 0 {
+			charging = true
+			maxVolts = math.Max(maxVolts, s.Volts)
+		}
+	}
+	if !charging {
+		return warnings, cautions
+	}
+	cautions = append(cautions, charge.Cautions(t.Chemistry, t.ChargeMethod)...)
+	if lo, hi := t.Limits.ChargeMinCelsius, t.Limits.ChargeMaxCelsius; prob.Celsius < lo || prob.Celsius > hi {
+		warnings = append(warnings, fmt.Sprintf("the load charges the pack at %g °C, outside the %s charge window %g to %g °C", prob.Celsius, t.Chemistry, lo, hi))
+	}
+	ns := float64(prob.Pack.Series)
+	if lim := t.Limits.ChargeVolts; lim > 0 && maxVolts/ns > lim+1e-6 {
+		warnings = append(warnings, fmt.Sprintf("while charging the terminal voltage reaches %.3f V per cell, above the %.3f V charge limit", maxVolts/ns, lim))
+	}
+	return warnings, cautions
 }
 
 func runSimulate(_ context.Context, args []string, stdout, stderr io.Writer) error {
@@ -261,6 +299,9 @@ func runSimulate(_ context.Context, args []string, stdout, stderr io.Writer) err
 	if !cell.Finite(*horizonH) || *horizonH < 0 {
 		return fmt.Errorf("%w: --horizon-hours must be a non-negative number, got %g", errUsage, *horizonH)
 	}
+	if *out == "-" && *asJSON {
+		return fmt.Errorf("%w: --out - and --json would both write to standard output; give --out a file", errUsage)
+	}
 	res, err := sim.Run(nil, prob, &sim.Settings{
 		Step: *step, Interval: *interval, Horizon: *horizonH * 3600, IgnoreCutoff: *ignoreCutoff,
 	})
@@ -278,8 +319,16 @@ func runSimulate(_ context.Context, args []string, stdout, stderr io.Writer) err
 			return fmt.Errorf("write %s: %w", *svg, err)
 		}
 	}
+	warnings, cautions := simulateNotes(prob, res.Samples)
 	if *out == "-" {
-		return nil // the CSV owns standard output
+		// The CSV owns standard output; the warnings and cautions still reach the user.
+		for _, m := range warnings {
+			fmt.Fprintln(stderr, "warning:", m)
+		}
+		for _, c := range cautions {
+			fmt.Fprintln(stderr, c)
+		}
+		return nil
 	}
 	last := res.Samples[len(res.Samples)-1]
 	sum := simulateSummary{
@@ -287,7 +336,7 @@ func runSimulate(_ context.Context, args []string, stdout, stderr io.Writer) err
 		Status: res.Status.String(), DurationSeconds: res.Seconds, ChargeAmpHours: res.AmpHours,
 		EnergyWattHours: res.WattHours, FinalStateOfCharge: res.Final.SOC, FinalVoltageVolts: last.Volts,
 		CutoffVoltageVolts: prob.CutoffVolts() * float64(prob.Pack.Series), SampleCount: len(res.Samples),
-		Steps: res.Steps, Cautions: []string{dischargeCaution},
+		Steps: res.Steps, Warnings: warnings, Cautions: cautions,
 	}
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
@@ -305,8 +354,15 @@ func runSimulate(_ context.Context, args []string, stdout, stderr io.Writer) err
 	if err := w.Flush(); err != nil {
 		return err
 	}
-	_, err = fmt.Fprintln(stdout, dischargeCaution)
-	return err
+	for _, m := range warnings {
+		fmt.Fprintln(stdout, "warning:", m)
+	}
+	for _, c := range cautions {
+		if _, err := fmt.Fprintln(stdout, c); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 func simStatusText(s sim.Status) string {

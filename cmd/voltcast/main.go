@@ -13,6 +13,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"os/signal"
 	"sort"
@@ -112,6 +113,25 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 	}
 	if fs.NArg() > 0 {
 		return fmt.Errorf("%w: unexpected argument %q", errUsage, fs.Arg(0))
+	}
+	return nil
+}
+
+// flagGiven reports whether the flag name was set on the command line. Flags whose
+// default NaN means "not given" use it to refuse a NaN typed in.
+func flagGiven(fs *flag.FlagSet, name string) bool {
+	given := false
+	fs.Visit(func(f *flag.Flag) { given = given || f.Name == name })
+	return given
+}
+
+// checkGivenNaN returns a usage error if any of the named flags was given as NaN; each
+// value pairs with the name at the same index.
+func checkGivenNaN(fs *flag.FlagSet, names []string, values ...float64) error {
+	for i, n := range names {
+		if math.IsNaN(values[i]) && flagGiven(fs, n) {
+			return fmt.Errorf("%w: --%s must be a number, got NaN", errUsage, n)
+		}
 	}
 	return nil
 }
