@@ -8,7 +8,7 @@ import (
 )
 
 func TestChargeJSON(t *testing.T) {
-	code, out, errs := runCLI(t, "charge", "--type", "generic-nmc-18650", "--series", "4", "--soc", "0.1",
+	code, out, errs := runVoltcast(t, "charge", "--type", "generic-nmc-18650", "--series", "4", "--soc", "0.1",
 		"--temperature-celsius", "25", "--charger-current-amps", "1.5", "--charger-efficiency", "0.9", "--json")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
@@ -36,7 +36,7 @@ func TestChargeJSON(t *testing.T) {
 }
 
 func TestChargeTextDeadline(t *testing.T) {
-	code, out, errs := runCLI(t, "charge", "--type", "generic-lfp-26650", "--series", "4", "--soc", "0.2",
+	code, out, errs := runVoltcast(t, "charge", "--type", "generic-lfp-26650", "--series", "4", "--soc", "0.2",
 		"--target-soc", "0.8", "--temperature-celsius", "20", "--charger-current-amps", "3.3", "--deadline", "6h")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
@@ -77,7 +77,7 @@ func TestChargeErrors(t *testing.T) {
 		{"negative deadline", 2, "--deadline",
 			[]string{"--type", "generic-nmc-18650", "--soc", "0.5", "--temperature-celsius", "20", "--charger-current-amps", "1", "--deadline", "-1h"}},
 	} {
-		code, out, errs := runCLI(t, append([]string{"charge"}, c.args...)...)
+		code, out, errs := runVoltcast(t, append([]string{"charge"}, c.args...)...)
 		if code != c.code || !strings.Contains(errs, c.want) {
 			t.Errorf("%s: exit %d, stderr %q; want exit %d mentioning %q", c.name, code, errs, c.code, c.want)
 		}

@@ -89,7 +89,7 @@ func TestEstimateCommand(t *testing.T) {
 	cur := append(steps(600, 2), steps(600, 0.5)...)
 	in, truth := writeLog(t, dir, "log.csv", 0.85, cur, "time_s,current_a,voltage_v,temp_cell_c", plainRow)
 	out := filepath.Join(dir, "est.csv")
-	code, stdout, stderr := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
+	code, stdout, stderr := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -121,12 +121,12 @@ func TestEstimateCommand(t *testing.T) {
 	// A long log shows its progress on stderr.
 	defer func(n int) { progressRows = n }(progressRows)
 	progressRows = 100
-	if code, _, stderr = runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out); code != 0 || !strings.Contains(stderr, "estimate: 50% (") {
+	if code, _, stderr = runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out); code != 0 || !strings.Contains(stderr, "estimate: 50% (") {
 		t.Errorf("no progress on stderr for a long log (exit %d): %s", code, stderr)
 	}
 
 	// The baseline with a given start, and the health columns.
-	code, _, stderr = runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out,
+	code, _, stderr = runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out,
 		"--initial-soc", "0.85", "--estimator", "coulomb-counter", "--health")
 	if code != 0 {
 		t.Fatalf("coulomb counter: exit %d: %s", code, stderr)
@@ -157,7 +157,7 @@ func TestEstimateProfiles(t *testing.T) {
 	in := filepath.Join(dir, "profiles.csv")
 	os.WriteFile(in, []byte(b.String()), 0o644)
 	out := filepath.Join(dir, "est.csv")
-	code, stdout, stderr := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
+	code, stdout, stderr := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -194,7 +194,7 @@ func TestEstimateBadRows(t *testing.T) {
 			return plainRow(k, tm, i, v, c)
 		})
 	out := filepath.Join(dir, "est.csv")
-	code, stdout, stderr := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
+	code, stdout, stderr := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", in, "--out", out)
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -241,13 +241,13 @@ func TestEstimateErrors(t *testing.T) {
 		{"milliamperes", []string{"--type", "generic-nmc-18650", "--in", milli, "--out", out}, 1, "milliamperes"},
 		{"primary type file missing", []string{"--type", "nosuch.json", "--in", log, "--out", out}, 1, "nosuch.json"},
 	} {
-		code, _, stderr := runCLI(t, append([]string{"estimate"}, c.args...)...)
+		code, _, stderr := runVoltcast(t, append([]string{"estimate"}, c.args...)...)
 		if code != c.code || !strings.Contains(stderr, c.msg) || strings.Count(strings.TrimSpace(stderr), "\n") > 0 {
 			t.Errorf("%s: exit %d, stderr %q; want exit %d, one line containing %q", c.name, code, stderr, c.code, c.msg)
 		}
 	}
 	// The temperature flag fills in for a missing column.
-	code, _, stderr := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", noTemp, "--out", out, "--temperature-celsius", "25")
+	code, _, stderr := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", noTemp, "--out", out, "--temperature-celsius", "25")
 	if code != 0 || !strings.Contains(stderr, "no temperature column") {
 		t.Errorf("with --temperature-celsius: exit %d, stderr %q", code, stderr)
 	}
@@ -262,10 +262,10 @@ func TestEstimateChargePositive(t *testing.T) {
 	b, _ := writeLog(t, dir, "b.csv", 0.6, cur, "time_s,current_a,voltage_v,temp_cell_c",
 		func(k int, tm, i, v, c float64) string { return plainRow(k, tm, -i, v, c) })
 	oa, ob := filepath.Join(dir, "oa.csv"), filepath.Join(dir, "ob.csv")
-	if code, _, e := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", a, "--out", oa); code != 0 {
+	if code, _, e := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", a, "--out", oa); code != 0 {
 		t.Fatal(e)
 	}
-	if code, _, e := runCLI(t, "estimate", "--type", "generic-nmc-18650", "--in", b, "--out", ob, "--current-sign", "charge-positive"); code != 0 {
+	if code, _, e := runVoltcast(t, "estimate", "--type", "generic-nmc-18650", "--in", b, "--out", ob, "--current-sign", "charge-positive"); code != 0 {
 		t.Fatal(e)
 	}
 	da, _ := os.ReadFile(oa)
@@ -291,7 +291,7 @@ func TestEstimateMeasured(t *testing.T) {
 	}
 	dir := t.TempDir()
 	typ := filepath.Join(dir, "r1.json")
-	if code, _, e := runCLI(t, "fit", "--ocv-test", filepath.Join(root, "cellR1_ocv_c20.csv"),
+	if code, _, e := runVoltcast(t, "fit", "--ocv-test", filepath.Join(root, "cellR1_ocv_c20.csv"),
 		"--pulse-test", filepath.Join(root, "cellR1_pulse_1C_10min_rest20min.csv"), "--out", typ); code != 0 {
 		t.Fatalf("fit: %s", e)
 	}
@@ -321,7 +321,7 @@ func TestEstimateMeasured(t *testing.T) {
 		if start != "" {
 			args = append(args, "--initial-soc", start)
 		}
-		if code, _, e := runCLI(t, args...); code != 0 {
+		if code, _, e := runVoltcast(t, args...); code != 0 {
 			t.Fatalf("estimate: %s", e)
 		}
 		head, rows := readEst(t, out)

@@ -1,8 +1,6 @@
 package main
 
 import (
-	"bytes"
-	"context"
 	"encoding/json"
 	"errors"
 	"os"
@@ -13,15 +11,8 @@ import (
 	"github.com/voltcast/voltcast/model/chem"
 )
 
-func runCLI(t *testing.T, args ...string) (code int, stdout, stderr string) {
-	t.Helper()
-	var out, errb bytes.Buffer
-	code = run(context.Background(), args, &out, &errb)
-	return code, out.String(), errb.String()
-}
-
 func TestTypesTable(t *testing.T) {
-	code, out, errs := runCLI(t, "types")
+	code, out, errs := runVoltcast(t, "types")
 	if code != 0 {
 		t.Fatalf("voltcast types exit %d: %s", code, errs)
 	}
@@ -36,7 +27,7 @@ func TestTypesTable(t *testing.T) {
 }
 
 func TestTypesJSON(t *testing.T) {
-	code, out, errs := runCLI(t, "types", "--json")
+	code, out, errs := runVoltcast(t, "types", "--json")
 	if code != 0 {
 		t.Fatalf("voltcast types --json exit %d: %s", code, errs)
 	}
@@ -58,7 +49,7 @@ func TestTypesJSON(t *testing.T) {
 }
 
 func TestTypesBadFlag(t *testing.T) {
-	code, _, errs := runCLI(t, "types", "--nope")
+	code, _, errs := runVoltcast(t, "types", "--nope")
 	if code != 2 || strings.Count(strings.TrimSpace(errs), "\n") > 20 {
 		t.Errorf("types --nope: exit %d; want 2 (stderr %q)", code, errs)
 	}
