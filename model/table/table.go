@@ -21,6 +21,16 @@
 //
 // Curves and Surfaces are immutable after construction and safe for concurrent use.
 // Evaluation does not allocate.
+//
+// # Evaluation cost
+//
+// Each cubic piece is stored in powers of the distance from its left knot, so that a
+// value takes three multiplications and the derivative four more, with no division.
+// A grid of knots carries an index of equal-width buckets, so that the segment holding
+// a value is found in constant time rather than by bisection. The curves of a Surface
+// share one grid, so a lookup finds the segment once and the temperature bracket once
+// however many curves it blends; [Curve.AtDeriv] and [Surface.AtDeriv] return the value
+// and the slope from one lookup, bit for bit equal to At and Deriv.
 package table
 
 import (
@@ -28,7 +38,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"sort"
 )
 
 // ErrTable is wrapped by every error about malformed table data.
@@ -37,7 +46,26 @@ var ErrTable = errors.New("invalid table")
 // Curve is a monotone-preserving cubic interpolant through (X[i], Y[i]).
 // Build it with [NewCurve]; the zero value is not usable.
 type Curve struct {
-	x, y, d []float64 // knots, values and Hermite slopes
+	grid           // knots
+	y, d []float64 // values and Hermite slopes
+	p    []poly    // p[k] is the piece on [x[k], x[k+1]], see poly
+}
+
+// poly holds the Hermite cubic of one segment [x₀, x₁] in powers of s = v − x₀:
+// f = p[0] + s·(p[1] + s·(p[2] + s·p[3])), with p[0] and p[1] the value and slope at x₀
+// and p[2], p[3] fixed by the value and slope at x₁ (the same polynomial as the
+// Hermite basis form, rearranged; it agrees with it to rounding).
+type poly [4]float64
+
+// at returns the cubic at offset s from the segment's left knot.
+func (q *poly) at(s float64) float64 { return q[0] + s*(q[1]+s*(q[2]+s*q[3])) }
+
+// atDeriv returns the cubic and its derivative at offset s, by Horner's scheme with
+// synthetic division; the value is computed exactly as by at.
+func (q *poly) atDeriv(s float64) (v, d float64) {
+	b2 := q[2] + s*q[3]
+	b1 := q[1] + s*b2
+	return q[0] + s*b1, b1 + s*(b2+s*q[3])
 }
 
 // NewCurve returns the interpolant through the points (x[i], y[i]). The abscissae must
@@ -59,12 +87,26 @@ func NewCurve(x, y []float64) (*Curve, error) {
 		}
 	}
 	c := &Curve{
-		x: append([]float64(nil), x...),
-		y: append([]float64(nil), y...),
-		d: make([]float64, len(x)),
+		grid: newGrid(append([]float64(nil), x...)),
+		y:    append([]float64(nil), y...),
+		d:    make([]float64, len(x)),
+		p:    make([]poly, len(x)-1),
 	}
 	c.slopes()
+	c.pieces()
 	return c, nil
+}
+
+// pieces sets the power-form coefficients of every segment from the knots and slopes:
+// with h the segment length and δ its divided difference, f = y₀ + d₀s +
+// ((3δ − 2d₀ − d₁)/h)s² + ((d₀ + d₁ − 2δ)/h²)s³.
+func (c *Curve) pieces() {
+	for k := range c.p {
+		h := c.x[k+1] - c.x[k]
+		del := (c.y[k+1] - c.y[k]) / h
+		d0, d1 := c.d[k], c.d[k+1]
+		c.p[k] = poly{c.y[k], d0, (3*del - 2*d0 - d1) / h, (d0 + d1 - 2*del) / (h * h)}
+	}
 }
 
 // slopes sets the Hermite slopes (PCHIP: Fritsch–Carlson monotonicity with
@@ -116,76 +158,130 @@ func (c *Curve) Knot(i int) (x, y float64) { return c.x[i], c.y[i] }
 // Domain returns the first and last abscissa.
 func (c *Curve) Domain() (lo, hi float64) { return c.x[0], c.x[len(c.x)-1] }
 
-// segment returns k such that x[k] <= v < x[k+1], clamped to [0, n-2].
-func (c *Curve) segment(v float64) int {
-	n := len(c.x)
-	if v <= c.x[1] {
-		return 0
+// grid is a strictly increasing sequence of knots with an index that finds the
+// segment holding a value in constant time: the domain is cut into buckets no wider
+// than the narrowest segment (up to a limit), and idx holds the segment at the left
+// edge of each bucket, from which a lookup steps at most a knot or two.
+type grid struct {
+	x   []float64 // knots, at least two
+	inv float64   // buckets per unit of x
+	idx []int32   // idx[b] is the segment holding x[0] + b/inv
+}
+
+// maxBucketsPerSegment bounds the index of a very unevenly spaced grid; a lookup
+// then steps over more knots.
+const maxBucketsPerSegment = 8
+
+// newGrid indexes the knots x (strictly increasing, at least two), which it keeps.
+func newGrid(x []float64) grid {
+	n := len(x)
+	span := x[n-1] - x[0]
+	minh := span
+	for k := range n - 1 {
+		minh = min(minh, x[k+1]-x[k])
 	}
-	if v >= c.x[n-2] {
-		return n - 2
-	}
-	// Binary search over a handful of knots is cheaper than anything cleverer.
-	lo, hi := 1, n-2
-	for hi-lo > 1 {
-		m := (lo + hi) / 2
-		if c.x[m] <= v {
-			lo = m
-		} else {
-			hi = m
+	m := int(math.Min(math.Ceil(span/minh), float64(maxBucketsPerSegment*(n-1))))
+	m = max(m, 1)
+	g := grid{x: x, inv: float64(m) / span, idx: make([]int32, m)}
+	k := 0
+	for b := range g.idx {
+		v := x[0] + float64(b)/g.inv
+		for k < n-2 && x[k+1] <= v {
+			k++
 		}
+		g.idx[b] = int32(k)
 	}
-	return lo
+	return g
+}
+
+// segment returns the segment that holds v: −1 if v ≤ x[0] (the linear extension
+// below), n−1 if v ≥ x[n−1] (above), and otherwise the k with x[k] ≤ v < x[k+1].
+func (g *grid) segment(v float64) int {
+	x := g.x
+	n := len(x)
+	if v <= x[0] {
+		return -1
+	}
+	if v >= x[n-1] {
+		return n - 1
+	}
+	if v != v {
+		return 0 // NaN: any piece gives NaN
+	}
+	return g.search(v)
+}
+
+// search returns the k with x[k] ≤ v < x[k+1] for x[0] < v < x[n−1], which the
+// caller has checked. The bucket gives a segment at most a rounding error away from
+// v's; the loops step from there, so the result is exact whatever the rounding.
+func (g *grid) search(v float64) int {
+	x := g.x
+	b := min(max(int((v-x[0])*g.inv), 0), len(g.idx)-1)
+	k := int(g.idx[b])
+	for v < x[k] {
+		k--
+	}
+	for v >= x[k+1] {
+		k++
+	}
+	return k
+}
+
+// value returns the interpolant at v, which lies in segment k (as returned by segment).
+func (c *Curve) value(k int, v float64) float64 {
+	if k < 0 {
+		return c.y[0] + c.d[0]*(v-c.x[0])
+	}
+	if k >= len(c.p) {
+		return c.y[k] + c.d[k]*(v-c.x[k])
+	}
+	return c.p[k].at(v - c.x[k])
+}
+
+// slope returns the derivative at v in segment k.
+func (c *Curve) slope(k int, v float64) float64 {
+	if k < 0 {
+		return c.d[0]
+	}
+	if k >= len(c.p) {
+		return c.d[k]
+	}
+	_, d := c.p[k].atDeriv(v - c.x[k])
+	return d
+}
+
+// valueSlope returns the value and the derivative at v in segment k; the value is the
+// same as value's, bit for bit.
+func (c *Curve) valueSlope(k int, v float64) (y, d float64) {
+	if k < 0 {
+		return c.y[0] + c.d[0]*(v-c.x[0]), c.d[0]
+	}
+	if k >= len(c.p) {
+		return c.y[k] + c.d[k]*(v-c.x[k]), c.d[k]
+	}
+	return c.p[k].atDeriv(v - c.x[k])
 }
 
 // At returns the interpolated value at v. Beyond the knots it extends linearly with the
 // end slope.
-func (c *Curve) At(v float64) float64 {
-	n := len(c.x)
-	if v <= c.x[0] {
-		return c.y[0] + c.d[0]*(v-c.x[0])
-	}
-	if v >= c.x[n-1] {
-		return c.y[n-1] + c.d[n-1]*(v-c.x[n-1])
-	}
-	k := c.segment(v)
-	h := c.x[k+1] - c.x[k]
-	t := (v - c.x[k]) / h
-	t2 := t * t
-	t3 := t2 * t
-	h00 := 2*t3 - 3*t2 + 1
-	h10 := t3 - 2*t2 + t
-	h01 := -2*t3 + 3*t2
-	h11 := t3 - t2
-	return h00*c.y[k] + h10*h*c.d[k] + h01*c.y[k+1] + h11*h*c.d[k+1]
-}
+func (c *Curve) At(v float64) float64 { return c.value(c.segment(v), v) }
 
 // Deriv returns the derivative of the interpolant at v (the end slope beyond the knots).
-func (c *Curve) Deriv(v float64) float64 {
-	n := len(c.x)
-	if v <= c.x[0] {
-		return c.d[0]
-	}
-	if v >= c.x[n-1] {
-		return c.d[n-1]
-	}
-	k := c.segment(v)
-	h := c.x[k+1] - c.x[k]
-	t := (v - c.x[k]) / h
-	t2 := t * t
-	dh00 := 6*t2 - 6*t
-	dh10 := 3*t2 - 4*t + 1
-	dh01 := -6*t2 + 6*t
-	dh11 := 3*t2 - 2*t
-	return (dh00*c.y[k]+dh01*c.y[k+1])/h + dh10*c.d[k] + dh11*c.d[k+1]
-}
+func (c *Curve) Deriv(v float64) float64 { return c.slope(c.segment(v), v) }
+
+// AtDeriv returns At(v) and Deriv(v), bit for bit, from one segment search.
+func (c *Curve) AtDeriv(v float64) (y, dy float64) { return c.valueSlope(c.segment(v), v) }
 
 // Surface is a function f(s, T) tabulated on a grid: one [Curve] in s for each
 // temperature, linear in temperature between curves and constant beyond the ends.
 // Temperatures are in kelvin. Build it with [NewSurface].
 type Surface struct {
+	grid             // state-of-charge knots, shared by every curve
 	temps  []float64 // K, strictly increasing
 	curves []*Curve
+	// p[k·len(temps)+j] is piece k of curve j: the pieces that one lookup blends
+	// lie side by side.
+	p []poly
 }
 
 // NewSurface builds a surface from values[j][i] = f(s[i], temps[j]). temps is in kelvin
@@ -210,7 +306,18 @@ func NewSurface(s, temps []float64, values [][]float64) (*Surface, error) {
 		if err != nil {
 			return nil, fmt.Errorf("row %d (%.2f K): %w", j, tk, err)
 		}
+		if j == 0 {
+			sf.grid = c.grid
+		}
+		c.grid = sf.grid // the same knots: one copy, found once per lookup
 		sf.curves[j] = c
+	}
+	nt := len(temps)
+	sf.p = make([]poly, (len(sf.x)-1)*nt)
+	for j, c := range sf.curves {
+		for k, q := range c.p {
+			sf.p[k*nt+j] = q
+		}
 	}
 	return sf, nil
 }
@@ -224,40 +331,89 @@ func (sf *Surface) NumTemps() int { return len(sf.temps) }
 // Curve returns the curve at the j-th temperature.
 func (sf *Surface) Curve(j int) *Curve { return sf.curves[j] }
 
-// bracket returns the pair of curve indices around tk and the weight of the upper one.
+// bracket returns the pair of curve indices around tk and the weight of the upper one:
+// j with temps[j] < tk ≤ temps[j+1] and w in (0, 1], or w = 0 and the single curve j
+// to use at or beyond the ends.
 func (sf *Surface) bracket(tk float64) (j int, w float64) {
-	n := len(sf.temps)
-	if n == 1 || tk <= sf.temps[0] {
+	t := sf.temps
+	n := len(t)
+	if n == 1 || tk <= t[0] {
 		return 0, 0
 	}
-	if tk >= sf.temps[n-1] {
+	if tk >= t[n-1] {
 		return n - 1, 0 // one curve to evaluate, not two
 	}
-	j = sort.SearchFloat64s(sf.temps, tk) - 1
-	if j < 0 {
-		j = 0
+	for j+2 < n && t[j+1] < tk {
+		j++
 	}
-	return j, (tk - sf.temps[j]) / (sf.temps[j+1] - sf.temps[j])
+	return j, (tk - t[j]) / (t[j+1] - t[j])
+}
+
+// inner returns f at offset ds into interior segment k, with the bracket (j, w).
+func (sf *Surface) inner(k int, ds float64, j int, w float64) float64 {
+	q := sf.p[k*len(sf.temps)+j:]
+	v := q[0].at(ds)
+	if w != 0 {
+		v += w * (q[1].at(ds) - v)
+	}
+	return v
+}
+
+// innerDeriv returns f and ∂f/∂s at offset ds into interior segment k, with the
+// bracket (j, w); the value is inner's, bit for bit.
+func (sf *Surface) innerDeriv(k int, ds float64, j int, w float64) (v, d float64) {
+	i := k*len(sf.temps) + j
+	v, d = sf.p[i].atDeriv(ds)
+	if w == 0 {
+		return v, d
+	}
+	v1, d1 := sf.p[i+1].atDeriv(ds)
+	return v + w*(v1-v), d + w*(d1-d)
+}
+
+// outer returns f and ∂f/∂s at s outside the open interval of the knots (on the linear
+// extensions, with the end slopes) or at a NaN s, with the bracket (j, w).
+func (sf *Surface) outer(s float64, j int, w float64) (v, d float64) {
+	k := len(sf.x) - 1
+	if s <= sf.x[0] {
+		k = -1
+	}
+	v, d = sf.curves[j].valueSlope(k, s)
+	if w == 0 {
+		return v, d
+	}
+	v1, d1 := sf.curves[j+1].valueSlope(k, s)
+	return v + w*(v1-v), d + w*(d1-d)
 }
 
 // At returns f(s, tk) with tk in kelvin.
 func (sf *Surface) At(s, tk float64) float64 {
 	j, w := sf.bracket(tk)
-	v := sf.curves[j].At(s)
-	if w == 0 {
+	x := sf.x
+	if !(s > x[0] && s < x[len(x)-1]) {
+		v, _ := sf.outer(s, j, w)
 		return v
 	}
-	return v + w*(sf.curves[j+1].At(s)-v)
+	k := sf.search(s)
+	return sf.inner(k, s-x[k], j, w)
 }
 
 // Deriv returns ∂f/∂s at (s, tk) with tk in kelvin.
 func (sf *Surface) Deriv(s, tk float64) float64 {
+	_, d := sf.AtDeriv(s, tk)
+	return d
+}
+
+// AtDeriv returns At(s, tk) and Deriv(s, tk), bit for bit, finding the grid segment and
+// the temperature bracket once.
+func (sf *Surface) AtDeriv(s, tk float64) (v, d float64) {
 	j, w := sf.bracket(tk)
-	v := sf.curves[j].Deriv(s)
-	if w == 0 {
-		return v
+	x := sf.x
+	if !(s > x[0] && s < x[len(x)-1]) {
+		return sf.outer(s, j, w)
 	}
-	return v + w*(sf.curves[j+1].Deriv(s)-v)
+	k := sf.search(s)
+	return sf.innerDeriv(k, s-x[k], j, w)
 }
 
 // Inverse returns s such that f(s, tk) = y for a surface that is non-decreasing in s
@@ -323,7 +479,7 @@ type surfaceJSON struct {
 // values[temperature][soc].
 func (sf *Surface) MarshalJSON() ([]byte, error) {
 	out := surfaceJSON{TempsCelsius: make([]float64, len(sf.temps)), Values: make([][]float64, len(sf.temps))}
-	out.SOC = append([]float64(nil), sf.curves[0].x...)
+	out.SOC = append([]float64(nil), sf.x...)
 	for j, tk := range sf.temps {
 		out.TempsCelsius[j] = tk - CelsiusOffset
 		out.Values[j] = append([]float64(nil), sf.curves[j].y...)

@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"errors"
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"gonum.org/v1/gonum/interp"
@@ -215,11 +216,143 @@ func BenchmarkSurfaceAt(b *testing.B) {
 	var sink float64
 	z := 0.0
 	for b.Loop() {
-		z += 0.0137
-		if z > 1 {
-			z -= 1
-		}
+		z = nextSOC(z)
 		sink += sf.At(z, 290)
 	}
 	_ = sink
+}
+
+// TestAtDerivMatches holds the combined evaluations to At and Deriv bit for bit (the
+// simulator and the filter rely on this to agree exactly): Curve.AtDeriv and
+// Surface.AtDeriv on fine, coarse, unevenly spaced and single-temperature grids,
+// inside, on and beyond the knots and the temperatures.
+func TestAtDerivMatches(t *testing.T) {
+	temps := []float64{263.15, 273.15, 298.15}
+	rows := func(y []float64, shift float64) [][]float64 {
+		out := make([][]float64, len(temps))
+		for j := range temps {
+			out[j] = make([]float64, len(y))
+			for i, v := range y {
+				out[j][i] = v + shift*float64(j)*(1+0.3*float64(i))
+			}
+		}
+		return out
+	}
+	ocv, err := NewSurface(socKnots, temps, rows(nmcOCV, 0.01))
+	if err != nil {
+		t.Fatal(err)
+	}
+	bowl, err := NewSurface(socKnots, temps, rows([]float64{5, 4, 3, 2.5, 2.2, 2, 1.9, 2, 2.3, 2.6, 3}, -0.2))
+	if err != nil {
+		t.Fatal(err)
+	}
+	z3 := []float64{0, 0.5, 1}
+	coarse, err := NewSurface(z3, temps[:2], [][]float64{{0.07, 0.045, 0.05}, {0.04, 0.025, 0.03}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	flat, err := NewSurface([]float64{0, 0.05, 0.1, 0.2, 0.4, 0.6, 0.8, 1}, temps[2:], [][]float64{{3.0, 3.35, 3.48, 3.58, 3.68, 3.80, 3.96, 4.17}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	surfaces := []*Surface{ocv, bowl, coarse, flat}
+	for _, tk := range []float64{250, 263.15, 268, 273.15, 290, 298.15, 320} {
+		for i := -20; i <= 1020; i++ {
+			z := float64(i) / 1000
+			if i%100 == 0 {
+				z = float64(i/100) / 10 // exactly on the knots
+			}
+			for n, sf := range surfaces {
+				v, d := sf.At(z, tk), sf.Deriv(z, tk)
+				if gv, gd := sf.AtDeriv(z, tk); gv != v || gd != d {
+					t.Fatalf("surface %d: AtDeriv(%g, %g) = %.17g, %.17g; At, Deriv give %.17g, %.17g", n, z, tk, gv, gd, v, d)
+				}
+				c := sf.Curve(0)
+				if gv, gd := c.AtDeriv(z); gv != c.At(z) || gd != c.Deriv(z) {
+					t.Fatalf("surface %d: Curve.AtDeriv(%g) = %.17g, %.17g; At, Deriv give %.17g, %.17g", n, z, gv, gd, c.At(z), c.Deriv(z))
+				}
+			}
+		}
+	}
+}
+
+// BenchmarkLookup compares two ways of getting a value and its slope from a surface
+// over two temperatures: separate At and Deriv calls, and the combined AtDeriv.
+func BenchmarkLookup(b *testing.B) {
+	sf, err := NewSurface(socKnots, []float64{273.15, 313.15}, [][]float64{nmcOCV, nmcOCV})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var sink float64
+	b.Run("At+Deriv", func(b *testing.B) {
+		b.ReportAllocs()
+		z := 0.0
+		for b.Loop() {
+			z = nextSOC(z)
+			sink += sf.At(z, 290) + sf.Deriv(z, 290)
+		}
+	})
+	b.Run("AtDeriv", func(b *testing.B) {
+		b.ReportAllocs()
+		z := 0.0
+		for b.Loop() {
+			z = nextSOC(z)
+			v, d := sf.AtDeriv(z, 290)
+			sink += v + d
+		}
+	})
+	_ = sink
+}
+
+// nextSOC steps a benchmark's state of charge through [0, 1] so that lookups land in
+// every segment.
+func nextSOC(z float64) float64 {
+	z += 0.0137
+	if z > 1 {
+		z--
+	}
+	return z
+}
+
+// TestGridSearch checks the bucket index against the definition of the segment
+// (x[k] ≤ v < x[k+1]) on even, uneven and very uneven grids (where the index is
+// capped and a lookup steps over several knots), at random points, on the knots and
+// one ulp either side of them.
+func TestGridSearch(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	grids := [][]float64{
+		socKnots,
+		{0, 0.5, 1},
+		{0, 1},
+		{0, 0.05, 0.1, 0.2, 0.4, 0.6, 0.8, 1},
+		{0, 1e-9, 2e-9, 0.5, 0.999, 1},
+		{-3, -2.5, 7, 7.001, 100},
+	}
+	for gi, x := range grids {
+		g := newGrid(append([]float64(nil), x...))
+		n := len(x)
+		var vs []float64
+		for range 2000 {
+			vs = append(vs, x[0]+(x[n-1]-x[0])*rng.Float64())
+		}
+		for _, xi := range x {
+			vs = append(vs, xi, math.Nextafter(xi, math.Inf(-1)), math.Nextafter(xi, math.Inf(1)))
+		}
+		for _, v := range vs {
+			want := -1
+			switch {
+			case v >= x[n-1]:
+				want = n - 1
+			case v > x[0]:
+				for k := range n - 1 {
+					if x[k] <= v && v < x[k+1] {
+						want = k
+					}
+				}
+			}
+			if got := g.segment(v); got != want {
+				t.Fatalf("grid %d: segment(%.17g) = %d; want %d", gi, v, got, want)
+			}
+		}
+	}
 }
