@@ -309,13 +309,5 @@ func writeResidualSVG(path string, files []fit.FileReport) error {
 	for i := range plots {
 		plots[i][0].Draw(canv[i][0])
 	}
-	f, err := os.Create(path)
-	if err != nil {
-		return err
-	}
-	if _, err := c.WriteTo(f); err != nil {
-		f.Close()
-		return err
-	}
-	return f.Close()
+	return writeFileFrom(path, c)
 }

@@ -555,24 +555,15 @@ func writeLifetimeSVG(path string, cells []lifetimePlotSeries) error {
 	pad := 0.05 * (ymax - ymin)
 	p.X.Min, p.X.Max = 0, xmax
 	p.Y.Min, p.Y.Max = ymin-pad, ymax+pad
-	f, err := os.Create(path)
-	if err != nil {
-		return err
-	}
 	format := "svg"
 	if ext := strings.ToLower(filepath.Ext(path)); ext == ".png" || ext == ".pdf" {
 		format = ext[1:] // handy for viewing; the flag documents SVG
 	}
 	wt, err := p.WriterTo(8*vg.Inch, 5*vg.Inch, format)
 	if err != nil {
-		f.Close()
 		return err
 	}
-	if _, err := wt.WriteTo(f); err != nil {
-		f.Close()
-		return err
-	}
-	return f.Close()
+	return writeFileFrom(path, wt)
 }
 
 func addLifetimeScatter(p *plot.Plot, pts plotter.XYs, col color.Color, g draw.GlyphDrawer, name string) error {

@@ -500,13 +500,5 @@ func writeTraceSVG(path, title string, samples []sim.Sample, cutoffPackVolts flo
 	canv := plot.Align(plots, draw.Tiles{Rows: 2, Cols: 1, PadY: vg.Millimeter * 3}, draw.New(c))
 	pv.Draw(canv[0][0])
 	ps.Draw(canv[1][0])
-	f, err := os.Create(path)
-	if err != nil {
-		return err
-	}
-	if _, err := c.WriteTo(f); err != nil {
-		f.Close()
-		return err
-	}
-	return f.Close()
+	return writeFileFrom(path, c)
 }

@@ -135,3 +135,17 @@ func checkGivenNaN(fs *flag.FlagSet, names []string, values ...float64) error {
 	}
 	return nil
 }
+
+// writeFileFrom creates (or truncates) the file at path and writes w's content to it,
+// for the plots the subcommands write.
+func writeFileFrom(path string, w io.WriterTo) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	if _, err := w.WriteTo(f); err != nil {
+		f.Close()
+		return err
+	}
+	return f.Close()
+}
