@@ -205,6 +205,7 @@ type FieldError struct {
 	Reason string // what is wrong, lowercase, no final punctuation
 }
 
+// Error returns "field: reason".
 func (e *FieldError) Error() string { return e.Field + ": " + e.Reason }
 
 // Is makes every FieldError match [ErrInvalid].

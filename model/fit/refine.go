@@ -30,6 +30,8 @@ type Refinement struct {
 	Type          *cell.Type
 }
 
+// String summarises the refinement on one line: the scale factors and the RMSE before
+// and after.
 func (r *Refinement) String() string {
 	var b strings.Builder
 	for i, f := range r.Factors {
