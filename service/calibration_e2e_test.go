@@ -156,12 +156,14 @@ func waitCalibration(t *testing.T, e *env, name string) *pb.Calibration {
 	}
 }
 
-func TestCalibrations(t *testing.T) { eachStore(t, testCalibrations) }
+// TestCalibrations runs its stores in parallel: it mostly waits (for fits, and for a
+// lease to lapse).
+func TestCalibrations(t *testing.T) { eachStoreParallel(t, testCalibrations) }
 
 func testCalibrations(t *testing.T, open opener) {
 	typ, tests := calibrationTests(t)
 	// Room for the two tests and one more pulse test, not two more.
-	lim := service.Limits{CalibrationWorkers: 2, CalibrationQueue: 1, CalibrationLease: 1200 * time.Millisecond,
+	lim := service.Limits{CalibrationWorkers: 2, CalibrationQueue: 1, CalibrationLease: 3 * time.Second,
 		MaxCalibrationSamples: len(tests[0].TimeOffsetsSeconds) + 2*len(tests[1].TimeOffsetsSeconds)}
 	e := newEnv(t, open, lim)
 	ctx := context.Background()
@@ -375,6 +377,7 @@ func testCalibrations(t *testing.T, open opener) {
 	}
 	// A calibration whose server died (a RUNNING row no job holds, not written for
 	// longer than the lease) is found FAILED, WORKER_LOST.
+	deadAt := time.Now()
 	if _, err := e.st.CreateCalibration(ctx, store.DefaultTenant, store.Calibration{ID: "cal-dead", Status: store.CalibrationRunning}, ""); err != nil {
 		t.Fatal(err)
 	}
@@ -382,7 +385,10 @@ func testCalibrations(t *testing.T, open opener) {
 		t.Fatal(err)
 	}
 	dead, err := e.cal.GetCalibration(ctx, &pb.GetCalibrationRequest{Name: "calibrations/cal-dead"})
-	if err != nil || dead.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_RUNNING {
+	switch {
+	case time.Since(deadAt) >= lim.CalibrationLease:
+		t.Logf("the machine stalled for a lease; the within-lease check is skipped")
+	case err != nil || dead.GetCalibration().GetState() != pb.CalibrationState_CALIBRATION_STATE_RUNNING:
 		t.Errorf("within its lease: %v, %v; want RUNNING", dead, err)
 	}
 	time.Sleep(lim.CalibrationLease + 200*time.Millisecond)

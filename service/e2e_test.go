@@ -69,12 +69,23 @@ func openSQLite(t *testing.T) store.Store {
 func openPostgres(t *testing.T) store.Store { return pgtest.Open(t) }
 
 // eachStore runs f once per store backend, as subtests "sqlite" and "postgres".
-func eachStore(t *testing.T, f func(t *testing.T, open opener)) {
+func eachStore(t *testing.T, f func(t *testing.T, open opener)) { runStores(t, false, f) }
+
+// eachStoreParallel is eachStore with the two subtests in parallel, for tests that
+// mostly wait.
+func eachStoreParallel(t *testing.T, f func(t *testing.T, open opener)) { runStores(t, true, f) }
+
+func runStores(t *testing.T, parallel bool, f func(t *testing.T, open opener)) {
 	for _, b := range []struct {
 		name string
 		open opener
 	}{{"sqlite", openSQLite}, {"postgres", openPostgres}} {
-		t.Run(b.name, func(t *testing.T) { f(t, b.open) })
+		t.Run(b.name, func(t *testing.T) {
+			if parallel {
+				t.Parallel()
+			}
+			f(t, b.open)
+		})
 	}
 }
 
