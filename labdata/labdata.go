@@ -210,6 +210,7 @@ func Read(rd io.Reader, name string, opt *Options) (*Record, error) {
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w: %v", name, ErrFormat, err)
 	}
+	head = append([]string(nil), head...) // ReuseRecord: the rows below would overwrite it
 	col := map[string]int{}
 	for i, h := range head {
 		h = strings.ToLower(strings.TrimSpace(strings.TrimPrefix(h, "\ufeff")))

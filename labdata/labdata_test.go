@@ -81,6 +81,9 @@ func TestReadBadInput(t *testing.T) {
 		{"millivolts", h + "0,1,3700,25\n", "outside (0, 1500]"},
 		{"kelvin as celsius", h + "0,1,3.7,298\n", "outside -60 to 100"},
 		{"short row", h + "0,1\n", "row has 2 fields"},
+		// The temperature column is named from the header, not from a later row.
+		{"temperature NaN", h + "0,1,3.7,25\n1,1,3.7,NaN\n", "temp_cell_c is NaN"},
+		{"temperature not a number", h + "0,1,3.7,25\n1,1,3.7,hot\n", `temp_cell_c "hot" is not a number`},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			_, err := Read(strings.NewReader(tc.in), "t.csv", nil)
