@@ -91,6 +91,20 @@ type Options struct {
 	// (dmegc_inr18650 does at the end of each random profile). The default treats a
 	// repeated timestamp as an error.
 	KeepLastDuplicate bool
+	// MaxRows bounds the data rows read into memory; 0 means [DefaultMaxRows]. A larger
+	// file is an error rather than an exhausted machine.
+	MaxRows int
+}
+
+// DefaultMaxRows is the default of [Options.MaxRows]: 20 million rows (about 1 GB in
+// memory), more than a day logged at 200 Hz.
+const DefaultMaxRows = 20_000_000
+
+func (o *Options) maxRows() int {
+	if o == nil || o.MaxRows <= 0 {
+		return DefaultMaxRows
+	}
+	return o.MaxRows
 }
 
 func (o *Options) maxAmps() float64 {
@@ -245,7 +259,7 @@ func Read(rd io.Reader, name string, opt *Options) (*Record, error) {
 	if opt != nil && opt.Sign == ChargePositive {
 		sign = -1
 	}
-	maxA, maxV := opt.maxAmps(), opt.maxVolts()
+	maxA, maxV, maxRows := opt.maxAmps(), opt.maxVolts(), opt.maxRows()
 
 	rec := &Record{Name: name, TemperatureDefaulted: tcol < 0}
 	line := 1
@@ -260,6 +274,9 @@ func Read(rd io.Reader, name string, opt *Options) (*Record, error) {
 		}
 		if len(row) == 1 && strings.TrimSpace(row[0]) == "" {
 			continue
+		}
+		if len(rec.Time) >= maxRows {
+			return nil, fmt.Errorf("%s:%d: %w: more than %d data rows; split the file", name, line, ErrFormat, maxRows)
 		}
 		num := func(c int, what string) (float64, error) {
 			if c >= len(row) {

@@ -29,6 +29,19 @@ func TestReadColumnsByName(t *testing.T) {
 	}
 }
 
+// TestReadMaxRows checks that a file longer than Options.MaxRows is refused with a
+// clear error instead of being read whole.
+func TestReadMaxRows(t *testing.T) {
+	in := "time_s,current_a,voltage_v,temp_c\n0,1,3.7,25\n1,1,3.7,25\n2,1,3.7,25\n"
+	if _, err := Read(strings.NewReader(in), "t.csv", &Options{MaxRows: 3}); err != nil {
+		t.Fatalf("3 rows with MaxRows 3: %v", err)
+	}
+	_, err := Read(strings.NewReader(in), "t.csv", &Options{MaxRows: 2})
+	if !errors.Is(err, ErrFormat) || !strings.Contains(err.Error(), "t.csv:4: bad lab data: more than 2 data rows") {
+		t.Errorf("3 rows with MaxRows 2: %v; want a row-limit error at line 4", err)
+	}
+}
+
 func TestReadChargePositive(t *testing.T) {
 	in := "time_s,current_a,voltage_v,temp_c,discharged_ah\n0,-2,3.9,20,0\n1,3,4.0,20,-0.001\n"
 	r, err := Read(strings.NewReader(in), "t.csv", &Options{Sign: ChargePositive})
