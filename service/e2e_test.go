@@ -53,9 +53,9 @@ type env struct {
 }
 
 // opener opens a fresh, empty store for one test.
-type opener func(t *testing.T) store.Store
+type opener func(t testing.TB) store.Store
 
-func openSQLite(t *testing.T) store.Store {
+func openSQLite(t testing.TB) store.Store {
 	t.Helper()
 	st, err := sqlite.Open(context.Background(), filepath.Join(t.TempDir(), "voltcast.db"), nil)
 	if err != nil {
@@ -66,7 +66,7 @@ func openSQLite(t *testing.T) store.Store {
 
 // openPostgres opens a store in a fresh schema, or skips (see package pgtest:
 // VOLTCAST_TEST_POSTGRES_DSN, VOLTCAST_REQUIRE_POSTGRES).
-func openPostgres(t *testing.T) store.Store { return pgtest.Open(t) }
+func openPostgres(t testing.TB) store.Store { return pgtest.Open(t) }
 
 // eachStore runs f once per store backend, as subtests "sqlite" and "postgres".
 func eachStore(t *testing.T, f func(t *testing.T, open opener)) { runStores(t, false, f) }
@@ -89,7 +89,7 @@ func runStores(t *testing.T, parallel bool, f func(t *testing.T, open opener)) {
 	}
 }
 
-func newEnv(t *testing.T, open opener, limits service.Limits) *env {
+func newEnv(t testing.TB, open opener, limits service.Limits) *env {
 	t.Helper()
 	ctx := context.Background()
 	st := open(t)
