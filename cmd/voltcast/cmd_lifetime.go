@@ -49,6 +49,10 @@ type lifetimeSeries struct {
 	skipped  int       // rows without a capacity value (or dropped by a row filter)
 }
 
+// maxCapacityRows bounds the rows of a capacity history read into memory (a variable
+// only so that a test can lower it).
+var maxCapacityRows = 5_000_000
+
 // readCapacityTable reads a CSV capacity history with a header row: a cycle-index column,
 // a capacity column in Ah and optionally a cell_id column (one series per cell, in order
 // of first appearance) and a time column (elapsed days, or an ISO 8601 start time). Rows
@@ -95,6 +99,9 @@ func readCapacityTable(r io.Reader, keep func(field func(col string) string) boo
 		}
 		if err != nil {
 			return nil, fmt.Errorf("line %d: %w", line, err)
+		}
+		if line-1 > maxCapacityRows {
+			return nil, fmt.Errorf("line %d: more than %d data rows; a capacity history has one row per cycle or check-up", line, maxCapacityRows)
 		}
 		field := func(i int) string {
 			if i < 0 || i >= len(rec) {

@@ -279,3 +279,18 @@ func FuzzReadCapacityTable(f *testing.F) {
 		}
 	})
 }
+
+// TestReadCapacityTableRowLimit checks that an oversized capacity history is refused
+// with a clear error instead of being read whole.
+func TestReadCapacityTableRowLimit(t *testing.T) {
+	defer func(n int) { maxCapacityRows = n }(maxCapacityRows)
+	maxCapacityRows = 3
+	text := "cycle,capacity_ah\n1,2.0\n2,1.99\n3,1.98\n"
+	if _, err := readCapacityTable(strings.NewReader(text), nil); err != nil {
+		t.Fatalf("3 rows with a limit of 3: %v", err)
+	}
+	_, err := readCapacityTable(strings.NewReader(text+"4,1.97\n"), nil)
+	if err == nil || !strings.Contains(err.Error(), "line 5: more than 3 data rows") {
+		t.Errorf("4 rows with a limit of 3: %v; want a row-limit error at line 5", err)
+	}
+}
