@@ -239,6 +239,7 @@ func runtimeToPB(res forecast.Result) *pb.ForecastRuntimeResponse {
 		EndStateOfCharge: clamp01(res.Final.SOC),
 		EndVoltageVolts:  res.FinalVolts,
 		Warnings:         append([]string(nil), res.Warnings...),
+		Cautions:         []string{forecast.Caution},
 	}
 	switch res.Status {
 	case forecast.StatusCutoff, forecast.StatusSOCFloor:

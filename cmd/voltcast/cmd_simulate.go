@@ -23,6 +23,7 @@ import (
 
 	"github.com/voltcast/voltcast/model/cell"
 	"github.com/voltcast/voltcast/model/charge"
+	"github.com/voltcast/voltcast/model/forecast"
 	"github.com/voltcast/voltcast/model/sim"
 )
 
@@ -34,9 +35,7 @@ func init() {
 }
 
 // dischargeCaution is printed with every simulation and forecast.
-const dischargeCaution = "caution: a model estimate. Do not discharge cells below the cut-off voltage or outside " +
-	"the temperature window of the cell maker's datasheet (deep discharge damages lithium cells); the datasheet, " +
-	"local codes and licensed practice take precedence."
+const dischargeCaution = "caution: " + forecast.Caution
 
 // packFlags are the flags that describe a pack, its state and its load; simulate and
 // forecast share them.

@@ -291,6 +291,13 @@ func spread(prob *Problem, set *Settings, t0 float64) (low, high float64) {
 	return math.Max(0, t0-math.Sqrt(dlo)), t0 + math.Sqrt(dhi)
 }
 
+// Caution is the standing caution that goes with every forecast and simulation, in
+// whatever form it is shown (command line, API response): deep discharge and
+// temperature limits are the cell maker's to set.
+const Caution = "a model estimate. Do not discharge cells below the cut-off voltage or outside " +
+	"the temperature window of the cell maker's datasheet (deep discharge damages lithium cells); the datasheet, " +
+	"local codes and licensed practice take precedence."
+
 // warnings returns the cautions that apply to a forecast.
 func warnings(prob *Problem, res *Result, peakCellAmps float64) []string {
 	var w []string

@@ -645,7 +645,11 @@ type ForecastRuntimeResponse struct {
 	// Why the simulation ended.
 	EndReason RuntimeEndReason `protobuf:"varint,8,opt,name=end_reason,json=endReason,proto3,enum=voltcast.v1.RuntimeEndReason" json:"end_reason,omitempty"`
 	// Notes on the forecast (for example a load beyond the cell's rating), in English.
-	Warnings      []string `protobuf:"bytes,9,rep,name=warnings,proto3" json:"warnings,omitempty"`
+	Warnings []string `protobuf:"bytes,9,rep,name=warnings,proto3" json:"warnings,omitempty"`
+	// Standing cautions that go with every forecast, in English: a forecast is a model
+	// estimate, and how deep a pack may be discharged and at which temperatures is for
+	// the cell maker's datasheet, local codes and licensed practice to say.
+	Cautions      []string `protobuf:"bytes,10,rep,name=cautions,proto3" json:"cautions,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -739,6 +743,13 @@ func (x *ForecastRuntimeResponse) GetEndReason() RuntimeEndReason {
 func (x *ForecastRuntimeResponse) GetWarnings() []string {
 	if x != nil {
 		return x.Warnings
+	}
+	return nil
+}
+
+func (x *ForecastRuntimeResponse) GetCautions() []string {
+	if x != nil {
+		return x.Cautions
 	}
 	return nil
 }
@@ -1639,7 +1650,7 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x04load\x18\x03 \x01(\v2\x11.voltcast.v1.LoadR\x04load\x124\n" +
 	"\x13temperature_celsius\x18\x04 \x01(\x01H\x00R\x12temperatureCelsius\x88\x01\x01\x12<\n" +
 	"\fmax_duration\x18\x05 \x01(\v2\x19.google.protobuf.DurationR\vmaxDurationB\x16\n" +
-	"\x14_temperature_celsius\"\xd9\x03\n" +
+	"\x14_temperature_celsius\"\xf5\x03\n" +
 	"\x17ForecastRuntimeResponse\x123\n" +
 	"\aruntime\x18\x01 \x01(\v2\x19.google.protobuf.DurationR\aruntime\x12>\n" +
 	"\rruntime_lower\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\fruntimeLower\x12>\n" +
@@ -1650,7 +1661,9 @@ const file_voltcast_v1_forecast_proto_rawDesc = "" +
 	"\x11end_voltage_volts\x18\a \x01(\x01R\x0fendVoltageVolts\x12<\n" +
 	"\n" +
 	"end_reason\x18\b \x01(\x0e2\x1d.voltcast.v1.RuntimeEndReasonR\tendReason\x12\x1a\n" +
-	"\bwarnings\x18\t \x03(\tR\bwarnings\"\xa7\x01\n" +
+	"\bwarnings\x18\t \x03(\tR\bwarnings\x12\x1a\n" +
+	"\bcautions\x18\n" +
+	" \x03(\tR\bcautions\"\xa7\x01\n" +
 	"\aCharger\x12(\n" +
 	"\x10max_current_amps\x18\x01 \x01(\x01R\x0emaxCurrentAmps\x12&\n" +
 	"\x0fmax_power_watts\x18\x02 \x01(\x01R\rmaxPowerWatts\x12\x1e\n" +
