@@ -748,3 +748,67 @@ func testTelemetryOutliers(t *testing.T, open opener) {
 		t.Errorf("resend: %v; want 30 duplicates, no outliers", r)
 	}
 }
+
+// TestTelemetryStreamBadInput checks the stream's answers to a battery that does not
+// exist and to time going backwards within a battery's samples: the block is answered
+// with an error or per-sample rejections, the stream stays open, and the battery's
+// applied watermark does not move for rejected samples.
+func TestTelemetryStreamBadInput(t *testing.T) { eachStore(t, testTelemetryStreamBadInput) }
+
+func testTelemetryStreamBadInput(t *testing.T, open opener) {
+	e := newEnv(t, open, service.Limits{})
+	ctx := context.Background()
+	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "tool-7", Battery: &pb.Battery{BatteryType: "batteryTypes/generic-nmc-18650", SeriesCount: 5, ParallelCount: 1}}); err != nil {
+		t.Fatal(err)
+	}
+	typ, _ := chem.Lookup("generic-nmc-18650")
+	pack, _ := cell.NewPack(typ, 5, 1)
+	off, cur, volt := samples(pack, 0.6, 2, 6)
+	base := time.Date(2026, 3, 2, 7, 0, 0, 0, time.UTC)
+	stream, err := e.tel.StreamTelemetry(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	send := func(b *pb.SampleBlock) *pb.BlockResult {
+		t.Helper()
+		if err := stream.Send(&pb.StreamTelemetryRequest{Block: b}); err != nil {
+			t.Fatal(err)
+		}
+		resp, err := stream.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		return resp.GetResult()
+	}
+	// A battery that does not exist: the block gets NOT_FOUND, nothing is created.
+	r := send(&pb.SampleBlock{Battery: "batteries/no-such-pack", BaseTime: timestamppb.New(base),
+		TimeOffsetsSeconds: off[:2], CurrentAmps: cur[:2], VoltageVolts: volt[:2]})
+	if be := r.GetError(); be.GetCode() != "NOT_FOUND" || r.GetAppliedCount() != 0 {
+		t.Errorf("block for a missing battery: %v; want NOT_FOUND and nothing applied", r)
+	}
+	if _, err := e.bats.GetBattery(ctx, &pb.GetBatteryRequest{Name: "batteries/no-such-pack"}); status.Code(err) != codes.NotFound {
+		t.Errorf("GetBattery after a stream block for it = %v; want NotFound", err)
+	}
+	// Four good samples, then two whose time goes back before the last applied one.
+	r = send(&pb.SampleBlock{Battery: "batteries/tool-7", BaseTime: timestamppb.New(base),
+		TimeOffsetsSeconds: off[:4], CurrentAmps: cur[:4], VoltageVolts: volt[:4]})
+	if r.GetAppliedCount() != 4 {
+		t.Fatalf("good block: %v", r)
+	}
+	applied := r.GetState().GetAppliedSequenceNumber()
+	r = send(&pb.SampleBlock{Battery: "batteries/tool-7", BaseTime: timestamppb.New(base),
+		TimeOffsetsSeconds: []float64{off[1] + 0.5, off[2] + 0.5}, CurrentAmps: cur[4:6], VoltageVolts: volt[4:6]})
+	if r.GetAppliedCount() != 0 || r.GetDuplicateCount()+r.GetRejectedCount() != 2 {
+		t.Errorf("samples older than the watermark: applied %d, duplicates %d, rejected %d; want none applied",
+			r.GetAppliedCount(), r.GetDuplicateCount(), r.GetRejectedCount())
+	}
+	if got := r.GetState().GetAppliedSequenceNumber(); got != applied {
+		t.Errorf("applied watermark moved from %d to %d on stale samples", applied, got)
+	}
+	if err := stream.CloseSend(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := stream.Recv(); err != io.EOF {
+		t.Fatalf("stream end: %v", err)
+	}
+}
