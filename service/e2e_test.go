@@ -34,6 +34,7 @@ import (
 	"github.com/voltcast/voltcast/service"
 	"github.com/voltcast/voltcast/service/internal/pgtest"
 	"github.com/voltcast/voltcast/service/store"
+	"github.com/voltcast/voltcast/service/store/postgres"
 	"github.com/voltcast/voltcast/service/store/sqlite"
 )
 
@@ -66,7 +67,17 @@ func openSQLite(t testing.TB) store.Store {
 
 // openPostgres opens a store in a fresh schema, or skips (see package pgtest:
 // VOLTCAST_TEST_POSTGRES_DSN, VOLTCAST_REQUIRE_POSTGRES).
-func openPostgres(t testing.TB) store.Store { return pgtest.Open(t) }
+// The caller closes the store (before the schema is dropped: cleanups run
+// last-registered first, so register the Close after calling openPostgres).
+func openPostgres(t testing.TB) store.Store {
+	t.Helper()
+	schema, dsn := pgtest.Schema(t)
+	s, err := postgres.Open(context.Background(), dsn, &postgres.Options{Schema: schema, MaxConns: 8})
+	if err != nil {
+		t.Fatalf("postgres.Open: %v", err)
+	}
+	return s
+}
 
 // eachStore runs f once per store backend, as subtests "sqlite" and "postgres".
 func eachStore(t *testing.T, f func(t *testing.T, open opener)) { runStores(t, false, f) }

@@ -1,5 +1,5 @@
-// Package pgtest opens PostgreSQL stores for tests, each in a fresh schema, the way
-// the store's own tests do (service/store/postgres): VOLTCAST_TEST_POSTGRES_DSN names
+// Package pgtest gives tests a PostgreSQL server and a fresh schema on it, for the
+// store's own tests (service/store/postgres) and the service's: VOLTCAST_TEST_POSTGRES_DSN names
 // the server (CI sets postgres://root@127.0.0.1:5432/test?sslmode=disable); without
 // it, or when the server does not answer, tests skip with a message, unless
 // VOLTCAST_REQUIRE_POSTGRES=1 makes that a failure.
@@ -16,12 +16,9 @@ import (
 	"time"
 
 	_ "github.com/jackc/pgx/v5/stdlib" // the "pgx" database/sql driver
-
-	"github.com/voltcast/voltcast/service/store"
-	"github.com/voltcast/voltcast/service/store/postgres"
 )
 
-// Environment variables, as in the store's tests.
+// Environment variables that select and require the test server.
 const (
 	DSNEnv     = "VOLTCAST_TEST_POSTGRES_DSN"
 	RequireEnv = "VOLTCAST_REQUIRE_POSTGRES"
@@ -74,7 +71,7 @@ func Schema(t testing.TB) (name, dsn string) {
 	admin, dsn := Server(t)
 	var b [8]byte
 	rand.Read(b[:])
-	name = "voltcast_svc_" + hex.EncodeToString(b[:])
+	name = "voltcast_test_" + hex.EncodeToString(b[:])
 	if _, err := admin.ExecContext(context.Background(), "CREATE SCHEMA "+name); err != nil {
 		t.Fatalf("create schema %s: %v", name, err)
 	}
@@ -84,17 +81,4 @@ func Schema(t testing.TB) (name, dsn string) {
 		}
 	})
 	return name, dsn
-}
-
-// Open opens a store in a fresh schema. The caller closes it (before the schema is
-// dropped: cleanups run last-registered first, so register the Close after calling
-// Open).
-func Open(t testing.TB) store.Store {
-	t.Helper()
-	schema, dsn := Schema(t)
-	s, err := postgres.Open(context.Background(), dsn, &postgres.Options{Schema: schema, MaxConns: 8})
-	if err != nil {
-		t.Fatalf("postgres.Open: %v", err)
-	}
-	return s
 }

@@ -1,84 +1,24 @@
 package postgres
 
 import (
-	"context"
-	"crypto/rand"
 	"database/sql"
-	"encoding/hex"
-	"os"
-	"sync"
 	"testing"
-	"time"
 
+	"github.com/voltcast/voltcast/service/internal/pgtest"
 	"github.com/voltcast/voltcast/service/store"
 	"github.com/voltcast/voltcast/service/store/storetest"
 )
 
-// The tests need a PostgreSQL server. VOLTCAST_TEST_POSTGRES_DSN names it (CI sets
-// postgres://root@127.0.0.1:5432/test?sslmode=disable); without it, or when the
-// server does not answer, the tests skip, unless VOLTCAST_REQUIRE_POSTGRES=1 (set by
-// .ci/run) makes that a failure. Every store a test opens lives in a fresh schema with
-// a random name, dropped at cleanup.
-const (
-	dsnEnv     = "VOLTCAST_TEST_POSTGRES_DSN"
-	requireEnv = "VOLTCAST_REQUIRE_POSTGRES"
-)
-
-var server struct {
-	once  sync.Once
-	admin *sql.DB
-	dsn   string
-	why   string // why the server is unavailable; "" when it is available
-}
+// The tests need a PostgreSQL server: service/internal/pgtest finds it, and skips (or,
+// with VOLTCAST_REQUIRE_POSTGRES=1 as .ci/run sets, fails) when there is none. Every
+// store a test opens lives in a fresh schema with a random name, dropped at cleanup.
 
 // requireServer returns the admin pool and DSN, or skips (or fails) the test.
-func requireServer(t testing.TB) (*sql.DB, string) {
-	t.Helper()
-	server.once.Do(func() {
-		server.dsn = os.Getenv(dsnEnv)
-		if server.dsn == "" {
-			server.why = dsnEnv + " is not set"
-			return
-		}
-		db, err := sql.Open("pgx", server.dsn)
-		if err != nil {
-			server.why = "cannot parse " + dsnEnv + ": " + err.Error()
-			return
-		}
-		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
-		defer cancel()
-		if err := db.PingContext(ctx); err != nil {
-			db.Close()
-			server.why = "server at " + dsnEnv + " does not answer: " + err.Error()
-			return
-		}
-		db.SetMaxOpenConns(4)
-		server.admin = db
-	})
-	if server.why != "" {
-		if os.Getenv(requireEnv) == "1" {
-			t.Fatalf("PostgreSQL is required (%s=1) but %s", requireEnv, server.why)
-		}
-		t.Skipf("skipping PostgreSQL tests: %s (e.g. %s=postgres://root@127.0.0.1:5432/test?sslmode=disable)", server.why, dsnEnv)
-	}
-	return server.admin, server.dsn
-}
+func requireServer(t testing.TB) (*sql.DB, string) { return pgtest.Server(t) }
 
 // freshSchema creates an empty schema with a random name and drops it at cleanup.
 func freshSchema(t testing.TB) string {
-	t.Helper()
-	admin, _ := requireServer(t)
-	var b [8]byte
-	rand.Read(b[:])
-	name := "voltcast_test_" + hex.EncodeToString(b[:])
-	if _, err := admin.ExecContext(context.Background(), "CREATE SCHEMA "+name); err != nil {
-		t.Fatalf("create schema %s: %v", name, err)
-	}
-	t.Cleanup(func() {
-		if _, err := admin.ExecContext(context.Background(), "DROP SCHEMA "+name+" CASCADE"); err != nil {
-			t.Errorf("drop schema %s: %v", name, err)
-		}
-	})
+	name, _ := pgtest.Schema(t)
 	return name
 }
 
