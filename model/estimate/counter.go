@@ -69,7 +69,7 @@ func (c *Counter) InitFromVoltage(v, tk float64) error {
 	}
 	c.cs = cell.State{SOC: soc}
 	c.socVar = variance
-	c.clk.restSeconds = math.Max(c.clk.restSeconds, c.cfg.restDuration)
+	c.clk.restSeconds = max(c.clk.restSeconds, c.cfg.restDuration)
 	return nil
 }
 
@@ -99,7 +99,7 @@ func (c *Counter) Update(s Sample) (Estimate, error) {
 	flags |= tempFlag(c.pack.Type, c.tmin, c.tmax, s.Current, s.Temperature)
 	if z := c.cs.SOC; z < 0 || z > 1 {
 		flags |= FlagSOCRange
-		c.cs.SOC = math.Min(socMax, math.Max(socMin, z))
+		c.cs.SOC = min(socMax, max(socMin, z))
 	}
 	e := c.estimate(s.Time, flags)
 	e.Voltage = c.pack.Voltage(&c.cs, s.Current, s.Temperature)
@@ -108,7 +108,7 @@ func (c *Counter) Update(s Sample) (Estimate, error) {
 }
 
 func (c *Counter) estimate(t float64, flags Flags) Estimate {
-	e := Estimate{Time: t, SOC: math.Min(1, math.Max(0, c.cs.SOC)), SOCSigma: math.Sqrt(c.socVar), Flags: flags}
+	e := Estimate{Time: t, SOC: min(1, max(0, c.cs.SOC)), SOCSigma: math.Sqrt(c.socVar), Flags: flags}
 	e.CapacityFactor, e.ResistanceFactor = packFactors(c.pack)
 	return e
 }

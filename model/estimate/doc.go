@@ -68,9 +68,9 @@
 // A measurement that would move the SOC by more than 0.01 is applied by the iterated
 // extended Kalman filter (Gauss–Newton relinearisation), so a first rested voltage far
 // from the prior on a curved OCV is met without overshoot. The covariance update uses
-// the Joseph form, is symmetrised after every step and is
-// checked for positive definiteness by a Cholesky factorisation; a failing covariance is
-// repaired and the sample flagged. A measurement whose normalised innovation squared
+// the Joseph form; prediction and update compute the upper triangle and mirror it, so
+// the covariance stays exactly symmetric, and it is checked for positive definiteness
+// by a Cholesky factorisation; a failing covariance is repaired and the sample flagged. A measurement whose normalised innovation squared
 // exceeds a chi-square gate is rejected as an outlier (the prediction is kept, the
 // voltage is not used) and counted. After [Settings.MaxRejections] consecutive
 // implausible innovations (rejected, or beyond 3σ), or when the normalised innovation

@@ -24,6 +24,31 @@ type EKF struct {
 	floor      vec // smallest variances kept by a repair
 	a          trans
 	tmin, tmax float64
+	// Parameters in the Arrhenius form depend on the temperature only: their last
+	// values, per branch (R, C) and for R0, so that a steady temperature costs no
+	// exponentials.
+	memo   [cell.MaxBranches][2]memo
+	r0Memo memo
+	biasW  memo // weight of the innovation mean for the last sample interval
+}
+
+// memo is a value remembered for one argument.
+type memo struct {
+	arg, v float64
+	ok     bool
+}
+
+// param returns p.At(z, tk) and p.SOCDeriv(z, tk), bit for bit as those methods give
+// them, from one table lookup when p is tabulated; otherwise the value depends on tk
+// only and is remembered in m.
+func param(p *cell.Param, m *memo, z, tk float64) (v, dz float64) {
+	if p.Table != nil {
+		return p.Table.AtDeriv(z, tk)
+	}
+	if !m.ok || m.arg != tk {
+		*m = memo{arg: tk, v: p.At(z, tk), ok: true}
+	}
+	return m.v, 0
 }
 
 // NewEKF returns a filter for pack p (whose Type must have passed cell.Type.Validate)
@@ -81,7 +106,7 @@ func (f *EKF) InitFromVoltage(v, tk float64) error {
 		return err
 	}
 	f.reset(soc, variance)
-	f.clk.restSeconds = math.Max(f.clk.restSeconds, f.cfg.restDuration)
+	f.clk.restSeconds = max(f.clk.restSeconds, f.cfg.restDuration)
 	return nil
 }
 
@@ -96,13 +121,13 @@ func socFromVoltage(p cell.Pack, c *config, v, tk float64) (soc, variance float6
 	}
 	ns := float64(p.Series)
 	ocv := p.Type.OCV
-	soc = math.Min(1, math.Max(0, ocv.Inverse(v/ns, tk)))
+	soc = min(1, max(0, ocv.Inverse(v/ns, tk)))
 	slope := ocv.Deriv(soc, tk)
 	hm := p.Type.Hysteresis.Max
 	vv := (c.voltVar+c.restModelVar)/(ns*ns) + hm*hm
 	sigma := 0.5
 	if slope > 0 {
-		sigma = math.Min(0.5, math.Max(0.02, math.Sqrt(vv)/slope))
+		sigma = min(0.5, max(0.02, math.Sqrt(vv)/slope))
 	}
 	return soc, sigma * sigma, nil
 }
@@ -202,14 +227,16 @@ func (f *EKF) Update(s Sample) (Estimate, error) {
 	// could stay locked out by its gate, or crawl towards the truth with a tiny gain
 	// when it is overconfident. The long averaging time keeps short model failures,
 	// such as the voltage knee at the end of a discharge, from triggering it.
-	if nis > math.Min(f.cfg.gate, suspectNIS) {
+	if nis > min(f.cfg.gate, suspectNIS) {
 		f.rejectRun++
 	} else {
 		f.rejectRun = 0
 	}
 	if dt := s.Time - prevTime; nis <= f.cfg.gate && dt < math.Inf(1) {
-		w := -math.Expm1(-dt / f.cfg.biasTime)
-		f.bias += w * (innov/sigma - f.bias)
+		if !f.biasW.ok || f.biasW.arg != dt {
+			f.biasW = memo{arg: dt, v: -math.Expm1(-dt / f.cfg.biasTime), ok: true}
+		}
+		f.bias += f.biasW.v * (innov/sigma - f.bias)
 	}
 	accept := true
 	switch {
@@ -329,7 +356,8 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 	}
 	for k := range l.nb {
 		br := &t.Branches[k]
-		r, c := br.R.At(z, tk), br.C.At(z, tk)
+		r, dr := param(&br.R, &f.memo[k][0], z, tk)
+		c, dc := param(&br.C, &f.memo[k][1], z, tk)
 		rr := r * rf // Step: r := b.R.At(z, tk) * rf
 		g := dt / (rr * c)
 		ak := math.Exp(-g)
@@ -342,7 +370,6 @@ func (f *EKF) transition(sg segment, a *trans, b *vec) (xn vec, dz float64) {
 		xn[1+k] = ak*v + rr*(1-ak)*u // Step: a*s.V[k] + r*(1-a)*u
 		w := v - rr*u
 		a.d[1+k] = ak
-		dr, dc := br.R.SOCDeriv(z, tk), br.C.SOCDeriv(z, tk)
 		if dr != 0 || dc != 0 || dudz != 0 {
 			a.set(1+k, 0, (ak*g*w/r+rf*(1-ak)*u)*dr+ak*g*w/c*dc+rr*(1-ak)*dudz)
 		}
@@ -410,13 +437,14 @@ func (f *EKF) measurement(x *vec, i, tk float64, rest bool, dt float64) (yhat fl
 	if l.ih >= 0 {
 		hv = x[l.ih]
 	}
-	r0 := t.R0.At(z, tk)
-	v := (t.OCV.At(z, tk) + hv) - (r0*rf)*ic // CellVoltage: OCV + H − R0·ic
+	r0, dr0 := param(&t.R0, &f.r0Memo, z, tk)
+	ocv, docv := t.OCV.AtDeriv(z, tk)
+	v := (ocv + hv) - (r0*rf)*ic // CellVoltage: OCV + H − R0·ic
 	for k := range l.nb {
 		v -= x[1+k]
 	}
 	yhat = v * ns
-	h[0] = ns * (t.OCV.Deriv(z, tk) - rf*t.R0.SOCDeriv(z, tk)*ic)
+	h[0] = ns * (docv - rf*dr0*ic)
 	for k := range l.nb {
 		h[1+k] = -ns
 	}
@@ -476,10 +504,10 @@ func (f *EKF) iterate(s Sample, rest bool, dt, r float64) {
 		for j := range f.l.n {
 			next[j] += ph[j] / sv * e
 		}
-		next[0] = math.Min(socMax, math.Max(socMin, next[0]))
+		next[0] = min(socMax, max(socMin, next[0]))
 		if f.l.ic >= 0 {
-			next[f.l.ic] = math.Min(capMax, math.Max(capMin, next[f.l.ic]))
-			next[f.l.ir] = math.Min(resMax, math.Max(resMin, next[f.l.ir]))
+			next[f.l.ic] = min(capMax, max(capMin, next[f.l.ic]))
+			next[f.l.ir] = min(resMax, max(resMin, next[f.l.ir]))
 		}
 		done := math.Abs(next[0]-xi[0]) < 1e-6
 		xi = next
@@ -503,7 +531,7 @@ func (f *EKF) inflate(e2, s, r float64) {
 		alpha = (e2 - r) / (s - r)
 	}
 	limit := maxInflatedSOCSigma * maxInflatedSOCSigma / f.f.p[0][0]
-	alpha = math.Min(math.Max(alpha, 1), math.Max(1, limit))
+	alpha = min(max(alpha, 1), max(1, limit))
 	sq := math.Sqrt(alpha)
 	var d vec
 	for i := range f.l.n {
@@ -525,7 +553,7 @@ const maxGapSOCSigma = 0.3
 // gapVar returns the SOC variance a gap adds to a variance p, limited so that the
 // total stays within maxGapSOCSigma.
 func gapVar(add, p float64) float64 {
-	return math.Max(0, math.Min(add, maxGapSOCSigma*maxGapSOCSigma-p))
+	return max(0, min(add, maxGapSOCSigma*maxGapSOCSigma-p))
 }
 
 // suspectNIS is the normalised innovation squared that a consistent filter exceeds
@@ -548,14 +576,14 @@ func (f *EKF) clamp() Flags {
 	z := f.x[0]
 	if z < 0 || z > 1 {
 		fl |= FlagSOCRange
-		f.x[0] = math.Min(socMax, math.Max(socMin, z))
+		f.x[0] = min(socMax, max(socMin, z))
 	}
 	if f.l.ic >= 0 {
 		c, r := f.x[f.l.ic], f.x[f.l.ir]
 		if c < capMin || c > capMax || r < resMin || r > resMax {
 			fl |= FlagHealthClamped
-			f.x[f.l.ic] = math.Min(capMax, math.Max(capMin, c))
-			f.x[f.l.ir] = math.Min(resMax, math.Max(resMin, r))
+			f.x[f.l.ic] = min(capMax, max(capMin, c))
+			f.x[f.l.ir] = min(resMax, max(resMin, r))
 		}
 	}
 	return fl
@@ -565,7 +593,7 @@ func (f *EKF) clamp() Flags {
 func (f *EKF) estimate(t float64, flags Flags) Estimate {
 	e := Estimate{
 		Time:     t,
-		SOC:      math.Min(1, math.Max(0, f.x[0])),
+		SOC:      min(1, max(0, f.x[0])),
 		SOCSigma: math.Sqrt(f.f.p[0][0]),
 		Flags:    flags,
 	}

@@ -103,7 +103,7 @@ func (c *config) plan(s Sample, clk clock) plan {
 	var p plan
 	if clk.started {
 		dt := s.Time - clk.time
-		hold := math.Min(dt, c.maxHold)
+		hold := min(dt, c.maxHold)
 		if dt > c.maxHold {
 			p.flags |= FlagGap
 		}

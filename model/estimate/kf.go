@@ -32,7 +32,14 @@ type trans struct {
 	m    int // number of off-diagonal entries
 	r, c [maxOff]int
 	v    [maxOff]float64
+	col  int // the column holding every off-diagonal entry; noCol if none, mixedCols if several
 }
+
+// Values of trans.col.
+const (
+	noCol     = -1
+	mixedCols = -2
+)
 
 // reset makes a the n×n identity.
 func (a *trans) reset(n int) {
@@ -40,6 +47,7 @@ func (a *trans) reset(n int) {
 		a.d[i] = 1
 	}
 	a.m = 0
+	a.col = noCol
 }
 
 // set records the off-diagonal entry A[r][c] = v (r ≠ c).
@@ -49,6 +57,13 @@ func (a *trans) set(r, c int, v float64) {
 	}
 	a.r[a.m], a.c[a.m], a.v[a.m] = r, c, v
 	a.m++
+	switch a.col {
+	case noCol:
+		a.col = c
+	case c, mixedCols:
+	default:
+		a.col = mixedCols
+	}
 }
 
 // at returns A[i][j] (for tests).
@@ -67,45 +82,82 @@ func (a *trans) at(i, j int) float64 {
 
 // predict sets P ← A·P·Aᵀ + σ²·b·bᵀ + diag(q): the covariance through the transition
 // A, plus the noise of an input entering through the column b with variance σ², plus
-// independent process noise q. The cost is O(n²) plus O(n) per off-diagonal entry.
+// independent process noise q. The upper triangle is computed and mirrored, so P stays
+// exactly symmetric.
+//
+// The battery model's A is its diagonal D plus entries in the SOC column only, unless
+// the health states are estimated: A = D + u·e_cᵀ with u zero at c. Then
+// A·P·Aᵀ = D·P·D + y·uᵀ + u·yᵀ + P_cc·u·uᵀ with y = D·P·e_c, that is
+// D·P·D + z·uᵀ + u·zᵀ with z = y + (P_cc/2)·u, and P is updated in one pass over its
+// upper triangle. Any other A takes the general sparse product (predictSparse).
 func (f *kf) predict(a *trans, b *vec, sigma2 float64, q *vec) {
-	n := f.n
-	// M = A·P: row i is d[i]·P[i] plus v·P[c] for each entry (i, c, v).
-	ap := &f.sc
+	if a.col == mixedCols {
+		f.predictSparse(a, b, sigma2, q)
+		return
+	}
+	n := min(f.n, maxDim)
+	p := &f.p
+	var u, z vec
+	if c := a.col; c >= 0 {
+		for e := range a.m {
+			u[a.r[e]] += a.v[e]
+		}
+		half := p[c][c] / 2
+		for i := range n {
+			z[i] = a.d[i]*p[i][c] + half*u[i]
+		}
+	}
 	for i := range n {
-		api, pi, di := ap[i][:n], f.p[i][:n], a.d[i]
-		for j := range api {
-			api[j] = di * pi[j]
+		pi, di, zi, ui, sbi := &p[i], a.d[i], z[i], u[i], sigma2*b[i]
+		for j := i; j < n; j++ {
+			v := di*a.d[j]*pi[j] + (zi*u[j] + ui*z[j]) + sbi*b[j]
+			pi[j], p[j][i] = v, v
+		}
+		pi[i] += q[i]
+	}
+}
+
+// predictSparse is predict for any sparse A: M = A·P, then P = M·Aᵀ. The cost is
+// O(n²) plus O(n) per off-diagonal entry.
+func (f *kf) predictSparse(a *trans, b *vec, sigma2 float64, q *vec) {
+	n := min(f.n, maxDim)
+	p, m := &f.p, &f.sc
+	// M = A·P: row i is d[i]·P[i] plus v·P[c] for each entry (i, c, v).
+	for i := range n {
+		mi, pi, di := &m[i], &p[i], a.d[i]
+		for j := range n {
+			mi[j] = di * pi[j]
 		}
 	}
 	for e := range a.m {
-		api, pc, v := ap[a.r[e]][:n], f.p[a.c[e]][:n], a.v[e]
-		for j := range api {
-			api[j] += v * pc[j]
+		mr, pc, v := &m[a.r[e]], &p[a.c[e]], a.v[e]
+		for j := range n {
+			mr[j] += v * pc[j]
 		}
 	}
 	// P = M·Aᵀ: column j is d[j]·M[:, j] plus v·M[:, c] for each entry (j, c, v).
 	for i := range n {
-		pi, api := f.p[i][:n], ap[i][:n]
-		for j := range pi {
-			pi[j] = api[j] * a.d[j]
+		pi, mi := &p[i], &m[i]
+		for j := i; j < n; j++ {
+			pi[j] = mi[j] * a.d[j]
 		}
 	}
 	for e := range a.m {
 		r, c, v := a.r[e], a.c[e], a.v[e]
-		for i := range n {
-			f.p[i][r] += v * ap[i][c]
+		for i := range min(r+1, n) {
+			p[i][r] += v * m[i][c]
 		}
 	}
-	bs := b[:n]
 	for i := range n {
-		pi, sbi := f.p[i][:n], sigma2*bs[i]
-		for j := range pi {
-			pi[j] += sbi * bs[j]
+		pi, sbi := &p[i], sigma2*b[i]
+		for j := i; j < n; j++ {
+			pi[j] += sbi * b[j]
 		}
 		pi[i] += q[i]
+		for j := i + 1; j < n; j++ {
+			p[j][i] = pi[j]
+		}
 	}
-	f.symmetrise()
 }
 
 // innovationVar returns H·P·Hᵀ + r and P·Hᵀ.
@@ -126,39 +178,29 @@ func (f *kf) innovationVar(h *vec, r float64) (s float64, ph vec) {
 // update applies a scalar measurement with row h, noise variance r and innovation e to
 // the state mean x (dimension n) and the covariance. It returns the gain. The covariance
 // follows the Joseph form P ← (I−K·H)·P·(I−K·H)ᵀ + K·r·Kᵀ (Bucy and Joseph, Filtering
-// for Stochastic Processes, 1968 [from memory]), evaluated as two rank-one updates:
-// M = P − K·(P·Hᵀ)ᵀ = (I−K·H)·P, then P ← M − (M·Hᵀ)·Kᵀ + r·K·Kᵀ, which is the same
-// product without an n³ multiplication. The result is symmetrised.
+// for Stochastic Processes, 1968 [from memory]), evaluated as two rank-one updates
+// without an n³ product: with ph = P·Hᵀ, M = (I−K·H)·P = P − K·phᵀ and
+// w = M·Hᵀ = (I−K·H)·ph = ph − K·(H·ph), P ← M·(I−K·H)ᵀ + r·K·Kᵀ = M − w·Kᵀ + r·K·Kᵀ.
+// Only the upper triangle is computed, and mirrored, so P stays exactly symmetric.
 //
 // s and ph must be innovationVar(h, r), which the caller has computed for its gate.
 func (f *kf) update(x *vec, h *vec, r, e, s float64, ph *vec) (k vec) {
-	n := f.n
-	ks, phs, hs := k[:n], ph[:n], h[:n]
-	for i := range ks {
-		ks[i] = phs[i] / s
-		x[i] += ks[i] * e
-	}
-	// M = P − K·phᵀ, where phᵀ = H·P (P symmetric); w = M·Hᵀ.
-	var w vec
+	n := min(f.n, maxDim)
+	p := &f.p
+	var hph float64
 	for i := range n {
-		pi := f.p[i][:n]
-		ki := ks[i]
-		var v float64
-		for j := range pi {
-			pi[j] -= ki * phs[j]
-			v += pi[j] * hs[j]
-		}
-		w[i] = v
+		k[i] = ph[i] / s
+		x[i] += k[i] * e
+		hph += h[i] * ph[i]
 	}
-	// P ← M − w·Kᵀ + r·K·Kᵀ, symmetrised.
 	for i := range n {
-		pi := f.p[i][:n]
-		wi, rki := w[i], r*ks[i]
-		for j := range pi {
-			pi[j] += -wi*ks[j] + rki*ks[j]
+		pi, ki, phi := &p[i], k[i], ph[i]
+		wi, rki := phi-ki*hph, r*ki
+		for j := i; j < n; j++ {
+			v := (pi[j] - ki*ph[j]) + (-wi*k[j] + rki*k[j])
+			pi[j], p[j][i] = v, v
 		}
 	}
-	f.symmetrise()
 	return k
 }
 
@@ -173,25 +215,29 @@ func (f *kf) symmetrise() {
 }
 
 // positiveDefinite reports whether P is finite and symmetric positive definite, by
-// attempting a Cholesky factorisation of a copy.
+// attempting a Cholesky factorisation P = L·Lᵀ into scratch space. Only the lower
+// triangle of P is read; the filter keeps P exactly symmetric.
 func (f *kf) positiveDefinite() bool {
-	n := f.n
+	n := min(f.n, maxDim)
 	l := &f.sc
 	for j := range n {
-		d := f.p[j][j]
+		lj, pj := &l[j], &f.p[j]
+		d := pj[j]
 		for k := range j {
-			d -= l[j][k] * l[j][k]
+			d -= lj[k] * lj[k]
 		}
-		if !(d > 0) || math.IsInf(d, 0) {
+		if !(d > 0 && d <= math.MaxFloat64) {
 			return false
 		}
-		l[j][j] = math.Sqrt(d)
+		ljj := math.Sqrt(d)
+		lj[j] = ljj
 		for i := j + 1; i < n; i++ {
+			li := &l[i]
 			v := f.p[i][j]
 			for k := range j {
-				v -= l[i][k] * l[j][k]
+				v -= li[k] * lj[k]
 			}
-			l[i][j] = v / l[j][j]
+			li[j] = v / ljj
 		}
 	}
 	return true

@@ -125,8 +125,40 @@ func TestKFRepair(t *testing.T) {
 }
 
 // TestKFPredictSparse checks the sparse covariance propagation against the dense
-// product A·P·Aᵀ + σ²·b·bᵀ + diag(q).
+// product A·P·Aᵀ + σ²·b·bᵀ + diag(q), for a transition with entries in several columns
+// (the general product), in one column (the rank-two form the model without health
+// states takes, in the SOC column and elsewhere) and in none.
 func TestKFPredictSparse(t *testing.T) {
+	type entry struct {
+		r, c int
+		v    float64
+	}
+	for _, tc := range []struct {
+		name    string
+		entries []entry
+	}{
+		{"mixed", []entry{{1, 0, 0.3}, {2, 0, -0.2}, {1, 5, 0.7}, {4, 3, 1.1}}},
+		{"soc-column", []entry{{1, 0, 0.3}, {2, 0, -0.2}, {3, 0, 2.5}}},
+		{"other-column", []entry{{0, 4, 0.3}, {5, 4, -1.2}}},
+		{"diagonal", nil},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			var a trans
+			a.reset(6)
+			for i := range 6 {
+				a.d[i] = 0.5 + 0.1*float64(i)
+			}
+			for _, e := range tc.entries {
+				a.set(e.r, e.c, e.v)
+			}
+			checkPredict(t, &a)
+		})
+	}
+}
+
+// checkPredict compares kf.predict through a against the dense product.
+func checkPredict(t *testing.T, a *trans) {
+	t.Helper()
 	const n = 6
 	f := kf{n: n}
 	for i := range n {
@@ -135,15 +167,6 @@ func TestKFPredictSparse(t *testing.T) {
 		}
 		f.p[i][i] += 1
 	}
-	var a trans
-	a.reset(n)
-	for i := range n {
-		a.d[i] = 0.5 + 0.1*float64(i)
-	}
-	a.set(1, 0, 0.3)
-	a.set(2, 0, -0.2)
-	a.set(1, 5, 0.7)
-	a.set(4, 3, 1.1)
 	b := vec{0.1, -0.2, 0.3, 0, 0.05, 0}
 	q := vec{1e-3, 2e-3, 0, 4e-3, 0, 1e-4}
 	sigma2 := 0.25
@@ -163,11 +186,14 @@ func TestKFPredictSparse(t *testing.T) {
 			dense[i][j] = s
 		}
 	}
-	f.predict(&a, &b, sigma2, &q)
+	f.predict(a, &b, sigma2, &q)
 	for i := range n {
 		for j := range n {
 			if math.Abs(f.p[i][j]-dense[i][j]) > 1e-14 {
 				t.Errorf("P[%d][%d] = %.17g; dense product %.17g", i, j, f.p[i][j], dense[i][j])
+			}
+			if f.p[i][j] != f.p[j][i] {
+				t.Errorf("P not symmetric at %d,%d", i, j)
 			}
 		}
 	}

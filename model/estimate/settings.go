@@ -370,13 +370,13 @@ func resolve(p cell.Pack, s *Settings) config {
 	if gp < 1 {
 		c.gate = distuv.ChiSquared{K: 1}.Quantile(gp)
 	}
-	rate := math.Max(t.Limits.MaxDischargeRate, t.Limits.MaxChargeRate)
+	rate := max(t.Limits.MaxDischargeRate, t.Limits.MaxChargeRate)
 	c.curFactor = or(s.MaxCurrentFactor, 20)
 	c.maxCurrent = c.curFactor * rate * oneC
 	top := t.Limits.ChargeVolts
 	for _, tk := range t.OCV.Temps() {
 		_, hi := t.OCV.Curve(0).Domain()
-		top = math.Max(top, t.OCV.At(hi, tk))
+		top = max(top, t.OCV.At(hi, tk))
 	}
 	c.vMin = s.VoltageMin
 	c.vMax = or(s.VoltageMax, 1.25*top*ns)
