@@ -349,28 +349,6 @@ func (sf *Surface) bracket(tk float64) (j int, w float64) {
 	return j, (tk - t[j]) / (t[j+1] - t[j])
 }
 
-// inner returns f at offset ds into interior segment k, with the bracket (j, w).
-func (sf *Surface) inner(k int, ds float64, j int, w float64) float64 {
-	q := sf.p[k*len(sf.temps)+j:]
-	v := q[0].at(ds)
-	if w != 0 {
-		v += w * (q[1].at(ds) - v)
-	}
-	return v
-}
-
-// innerDeriv returns f and ∂f/∂s at offset ds into interior segment k, with the
-// bracket (j, w); the value is inner's, bit for bit.
-func (sf *Surface) innerDeriv(k int, ds float64, j int, w float64) (v, d float64) {
-	i := k*len(sf.temps) + j
-	v, d = sf.p[i].atDeriv(ds)
-	if w == 0 {
-		return v, d
-	}
-	v1, d1 := sf.p[i+1].atDeriv(ds)
-	return v + w*(v1-v), d + w*(d1-d)
-}
-
 // outer returns f and ∂f/∂s at s outside the open interval of the knots (on the linear
 // extensions, with the end slopes) or at a NaN s, with the bracket (j, w).
 func (sf *Surface) outer(s float64, j int, w float64) (v, d float64) {
@@ -395,7 +373,13 @@ func (sf *Surface) At(s, tk float64) float64 {
 		return v
 	}
 	k := sf.search(s)
-	return sf.inner(k, s-x[k], j, w)
+	ds := s - x[k]
+	i := k*len(sf.temps) + j
+	v := sf.p[i].at(ds)
+	if w != 0 {
+		v += w * (sf.p[i+1].at(ds) - v)
+	}
+	return v
 }
 
 // Deriv returns ∂f/∂s at (s, tk) with tk in kelvin.
@@ -413,7 +397,14 @@ func (sf *Surface) AtDeriv(s, tk float64) (v, d float64) {
 		return sf.outer(s, j, w)
 	}
 	k := sf.search(s)
-	return sf.innerDeriv(k, s-x[k], j, w)
+	ds := s - x[k]
+	i := k*len(sf.temps) + j
+	v, d = sf.p[i].atDeriv(ds)
+	if w != 0 {
+		v1, d1 := sf.p[i+1].atDeriv(ds)
+		v, d = v+w*(v1-v), d+w*(d1-d)
+	}
+	return v, d
 }
 
 // Inverse returns s such that f(s, tk) = y for a surface that is non-decreasing in s
