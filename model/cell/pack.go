@@ -130,8 +130,20 @@ func (p Pack) Step(s *State, i, dt, tk float64) {
 	rf := p.resFactor()
 	for k := range t.Branches {
 		b := &t.Branches[k]
-		r := b.R.At(z, tk) * rf
-		c := b.C.At(z, tk)
+		// Tables are read directly rather than through Param.At, which is too large
+		// to inline: one call fewer per parameter in the simulator's innermost loop.
+		var r, c float64
+		if b.R.Table != nil {
+			r = b.R.Table.At(z, tk)
+		} else {
+			r = b.R.At(z, tk)
+		}
+		r *= rf
+		if b.C.Table != nil {
+			c = b.C.Table.At(z, tk)
+		} else {
+			c = b.C.At(z, tk)
+		}
 		a := math.Exp(-dt / (r * c))
 		u := ic
 		if b.ExchangeCurrent != nil {
