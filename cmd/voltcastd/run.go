@@ -245,10 +245,14 @@ func serve(ctx context.Context, cfg Config, log *slog.Logger, tel *telemetry, st
 	}
 	stopPersist() // 6
 	persistDone.Wait()
-	if err := svc.Flush(sctx); err != nil {
+	// The flush must finish even when a slow client used up the shutdown deadline in
+	// step 3: it gets a deadline of its own, so estimator state is not dropped.
+	fctx, fcancel := context.WithTimeout(context.WithoutCancel(ctx), cfg.ShutdownTimeout)
+	defer fcancel()
+	if err := svc.Flush(fctx); err != nil {
 		errs = append(errs, fmt.Errorf("flushing estimator state: %w", err))
 	}
-	if err := svc.Close(sctx); err != nil {
+	if err := svc.Close(fctx); err != nil {
 		errs = append(errs, fmt.Errorf("stopping calibrations: %w", err))
 	}
 	if err := st.Close(); err != nil { // 7
