@@ -2,6 +2,7 @@ package fit
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -16,7 +17,11 @@ import (
 type Problem struct {
 	// Name is the name of the fitted type; empty means "fitted".
 	Name string
-	// OCVTest is a low-rate (C/20-style) test; see [OCV].
+	// OCVTest is a low-rate (C/20-style) test; see [OCV]. When it is not one (no
+	// constant-current discharge at most Settings.OCV.MaxRate) but holds long rests, its
+	// rested voltages are used instead ([RestOCV]). When it is empty (no samples), the
+	// rested voltages of the first pulse test are used. OCVResult.Source and the report's
+	// notes say which.
 	OCVTest Record
 	// PulseTests are HPPC-style tests, one or more per temperature; see [Pulses].
 	PulseTests []Record
@@ -31,8 +36,11 @@ type Problem struct {
 
 // Settings control [Fit]. The zero value (or nil) selects the defaults.
 type Settings struct {
-	OCV   OCVSettings
-	Pulse PulseSettings
+	OCV OCVSettings
+	// RestOCV controls the OCV taken from rested voltages when there is no low-rate
+	// test. Its Hysteresis is replaced by the base type's when that has one.
+	RestOCV RestOCVSettings
+	Pulse   PulseSettings
 	// NoRestAnchoring keeps the low-rate OCV curve as it is. By default the curve of
 	// each pulse-test temperature is moved through the pulse test's rested voltages
 	// (see [Fit]).
@@ -53,7 +61,7 @@ type Settings struct {
 // Result is the outcome of [Fit].
 type Result struct {
 	Type   *cell.Type     // the fitted parameter set, validated
-	OCV    *OCVResult     // the low-rate OCV identification
+	OCV    *OCVResult     // the OCV identification (low-rate test or rested voltages)
 	Pulses []*PulseResult // one per pulse test
 	// Refinement holds the drive-cycle scale factors when Settings.Refine was used.
 	Refinement *Refinement
@@ -96,7 +104,8 @@ func LithiumLimits(cutoff float64) cell.Limits {
 
 // Fit calibrates a cell type from lab records.
 //
-//  1. The OCV curve and the capacity come from the low-rate test ([OCV]).
+//  1. The OCV curve and the capacity come from the low-rate test ([OCV]), or, without
+//     one, from the long rests of a pulse test ([RestOCV]; see Problem.OCVTest).
 //  2. Each pulse test gives R0 and RC parameters at several states of charge
 //     ([Pulses]). Pulse tests within 2 K of each other are pooled into one temperature.
 //  3. Rest anchoring: the rested voltages of the pulse tests are OCV samples at the
@@ -115,6 +124,11 @@ func LithiumLimits(cutoff float64) cell.Limits {
 //     Beyond the tested temperatures each resistance table follows the Arrhenius law
 //     with its own activation energy, and exchange currents the inverse of their
 //     branch's.
+//     With a base type that has hysteresis (LFP, NiMH in the catalogue), the fitted
+//     type keeps it: the records here cannot identify it (that needs rests reached
+//     from both directions at the same state of charge), so it is the catalogue's
+//     value, and every rested voltage is taken as OCV + h with h the model's own
+//     hysteresis state there (replayed through the record from h = 0).
 //  5. With Settings.Refine and drive cycles, scale factors on the resistance and
 //     capacitance tables are fitted over the whole drive-cycle voltage traces
 //     ([Refine]).
@@ -134,12 +148,40 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 		return nil, fmt.Errorf("%w: at least one pulse test is needed", ErrData)
 	}
 	res := &Result{}
-	if s.Progress != nil {
-		s.Progress(Progress{Stage: "ocv", Name: p.OCVTest.Name, Done: 0, Total: 1})
+	var hyst cell.Hysteresis
+	if p.Base != nil {
+		hyst = p.Base.Hysteresis
 	}
-	ocv, err := OCV(p.OCVTest, &s.OCV)
-	if err != nil {
-		return nil, fmt.Errorf("ocv test: %w", err)
+	rs := s.RestOCV
+	if hyst.Max > 0 {
+		rs.Hysteresis = hyst
+	}
+	src := p.OCVTest
+	if src.Len() == 0 {
+		src = p.PulseTests[0]
+	}
+	if s.Progress != nil {
+		s.Progress(Progress{Stage: "ocv", Name: src.Name, Done: 0, Total: 1})
+	}
+	var ocv *OCVResult
+	var err error
+	if p.OCVTest.Len() == 0 {
+		ocv, err = RestOCV(src, &rs)
+		if err != nil {
+			return nil, fmt.Errorf("no ocv test given, and the first pulse test gives no OCV from its rests: %w", err)
+		}
+	} else {
+		ocv, err = OCV(src, &s.OCV)
+		if errors.Is(err, ErrNotLowRate) {
+			r, rerr := RestOCV(src, &rs)
+			if rerr != nil {
+				return nil, fmt.Errorf("ocv test: %w; nor do its rests give an OCV: %v", err, rerr)
+			}
+			ocv, err = r, nil
+		}
+		if err != nil {
+			return nil, fmt.Errorf("ocv test: %w", err)
+		}
 	}
 	res.OCV = ocv
 	base, err := table.NewCurve(ocv.SOC, ocv.Volts)
@@ -152,6 +194,13 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 		if err != nil {
 			return nil, fmt.Errorf("pulse test: %w", err)
 		}
+		if hyst.Max > 0 {
+			h := replayHysteresis(r, hyst, q)
+			for i := range pr.Rests {
+				rp := &pr.Rests[i]
+				rp.Volts -= h[pr.Windows[rp.window].Start]
+			}
+		}
 		res.Pulses = append(res.Pulses, pr)
 	}
 	ps := s.Pulse.defaults()
@@ -162,7 +211,7 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 	if !(ea >= 0 && ea <= 200e3) {
 		return nil, fmt.Errorf("fit: activation energy must be in [0, 200000] J/mol, got %g", ea)
 	}
-	typ, notes, err := assemble(p, ocv, base, res.Pulses, ps.Branches, !s.NoRestAnchoring, ea)
+	typ, notes, err := assemble(p, src, ocv, base, res.Pulses, ps.Branches, !s.NoRestAnchoring, ea)
 	if err != nil {
 		return nil, err
 	}
@@ -180,7 +229,7 @@ func Fit(ctx context.Context, p *Problem, settings *Settings) (*Result, error) {
 		return nil, fmt.Errorf("fit: the fitted type is invalid: %w", err)
 	}
 	res.Type = typ
-	res.Report.Files = reportFiles(p, typ, ocv, res.Pulses, &s.Sim)
+	res.Report.Files = reportFiles(p, src, typ, ocv, res.Pulses, &s.Sim)
 	res.Runtime = time.Since(start)
 	return res, nil
 }
@@ -226,10 +275,14 @@ func groupByTemperature(prs []*PulseResult) []tempGroup {
 }
 
 // assemble builds the cell type from the identified pieces.
-func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult, nb int, anchor bool, ea float64) (*cell.Type, []string, error) {
+func assemble(p *Problem, src Record, ocv *OCVResult, base *table.Curve, prs []*PulseResult, nb int, anchor bool, ea float64) (*cell.Type, []string, error) {
 	gs := groupByTemperature(prs)
 	var notes []string
-	notes = append(notes, fmt.Sprintf("capacity %.4g Ah from the low-rate discharge (%s)", ocv.CapacityAh, p.OCVTest.Name))
+	if ocv.Source == SourceRests {
+		notes = append(notes, fmt.Sprintf("ocv method: rested voltages of %s (no low-rate test); capacity %.4g Ah = charge removed from full to the deepest point of that test at its own rates, a lower bound of the low-rate capacity", src.Name, ocv.CapacityAh))
+	} else {
+		notes = append(notes, fmt.Sprintf("ocv method: low-rate test %s; capacity %.4g Ah from the low-rate discharge (%s)", src.Name, ocv.CapacityAh, src.Name))
+	}
 	notes = append(notes, "ocv: "+ocv.Method)
 
 	// OCV rows.
@@ -516,7 +569,7 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		sum += ref.At((float64(k) + 0.5) / m)
 	}
 	typ.NominalVolts = math.Round(sum/m*100) / 100
-	cutoff := lastDischargeVolts(p.OCVTest)
+	cutoff := lastDischargeVolts(src)
 	if b := p.Base; b != nil {
 		typ.Chemistry = b.Chemistry
 		if b.ChargeMethod != "" {
@@ -524,14 +577,25 @@ func assemble(p *Problem, ocv *OCVResult, base *table.Curve, prs []*PulseResult,
 		}
 		typ.Limits = b.Limits
 		typ.CoulombicEfficiency = b.CoulombicEfficiency
+		if b.Hysteresis.Max > 0 {
+			typ.Hysteresis = b.Hysteresis
+			notes = append(notes, fmt.Sprintf("hysteresis kept from the base type %q (max %.0f mV, rate %g): not identified from these records, which have no long rests reached by charge at the same state of charge; rested voltages are taken as OCV + the model's hysteresis state",
+				b.Name, b.Hysteresis.Max*1e3, b.Hysteresis.Gamma))
+		}
 		typ.Sources = append(typ.Sources, b.Sources...)
 		notes = append(notes, fmt.Sprintf("limits from the base type %q", b.Name))
 	} else {
 		typ.Limits = LithiumLimits(math.Round(cutoff*100) / 100)
 		notes = append(notes, "limits: generic lithium-ion (no chemistry given); check them against the cell maker's datasheet")
 	}
-	typ.Description = fmt.Sprintf("fitted from lab data: %d-RC Thevenin model, OCV and capacity from %s, resistances from %d pulse test(s)", nb, p.OCVTest.Name, len(prs))
-	typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+p.OCVTest.Name)
+	how := "OCV and capacity from " + src.Name
+	if ocv.Source == SourceRests {
+		how = "OCV and capacity from the rested voltages of " + src.Name
+	}
+	typ.Description = fmt.Sprintf("fitted from lab data: %d-RC Thevenin model, %s, resistances from %d pulse test(s)", nb, how, len(prs))
+	if p.OCVTest.Len() > 0 {
+		typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+p.OCVTest.Name)
+	}
 	for _, r := range p.PulseTests {
 		typ.Sources = append(typ.Sources, "fitted by voltcast fit from "+r.Name)
 	}
@@ -652,15 +716,19 @@ func lastDischargeVolts(r Record) float64 {
 }
 
 // reportFiles computes the voltage error of the fitted type on every input record.
-func reportFiles(p *Problem, typ *cell.Type, ocv *OCVResult, prs []*PulseResult, sim *SimSettings) []FileReport {
+func reportFiles(p *Problem, src Record, typ *cell.Type, ocv *OCVResult, prs []*PulseResult, sim *SimSettings) []FileReport {
 	var out []FileReport
 	// The part of the OCV test that was used, simulated from full at its start.
 	{
-		r := p.OCVTest
+		r := src
 		part := Record{Name: r.Name, Time: r.Time[ocv.Start:ocv.End], Current: r.Current[ocv.Start:ocv.End],
 			Voltage: r.Voltage[ocv.Start:ocv.End], Temperature: r.Temperature[ocv.Start:ocv.End]}
 		v := Simulate(nil, typ, part, 1, nil)
-		out = append(out, fileReport(part, "ocv", "the low-rate discharge (and charge) used, simulated from full", v, 0))
+		how := "the low-rate discharge (and charge) used, simulated from full"
+		if ocv.Source == SourceRests {
+			how = "the whole test whose rests gave the OCV, simulated from full (state of charge from the current)"
+		}
+		out = append(out, fileReport(part, "ocv", how, v, 0))
 	}
 	for i, r := range p.PulseTests {
 		out = append(out, pulseReport(r, typ, prs[i]))

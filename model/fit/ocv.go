@@ -50,6 +50,16 @@ type OCVResult struct {
 	ChargeSOC [2]float64
 	// Method says how the curve was formed.
 	Method string
+	// Source is SourceLowRate ([OCV]) or SourceRests ([RestOCV]).
+	Source string
+	// Rests are the rested voltages the curve was taken from (SourceRests only):
+	// Measured is the last rested sample, Unrelaxed the remainder extrapolated from the
+	// rest's tail (0 when not extrapolated), Volts the table value before isotonic
+	// smoothing (corrected for the hysteresis state when settings asked for it).
+	Rests []RestPoint
+	// BottomExtrapolated reports that the value at state of charge 0 was extrapolated
+	// from the two lowest rests rather than measured (SourceRests only).
+	BottomExtrapolated bool
 	// Start and End bound the samples [Start, End) of the record that were used: from
 	// the last sample before the discharge to the end of the charge branch (or of the
 	// discharge).
@@ -104,7 +114,7 @@ func OCV(rec Record, settings *OCVSettings) (*OCVResult, error) {
 	ah := rec.counter()
 	dis, chg := ccBranches(rec, ah)
 	if len(dis) == 0 {
-		return nil, fmt.Errorf("%w: %s: no constant-current discharge found (an OCV test needs a low-rate discharge from full to the cut-off)", ErrData, rec.Name)
+		return nil, notLowRate(fmt.Errorf("%w: %s: no constant-current discharge found (an OCV test needs a low-rate discharge from full to the cut-off)", ErrData, rec.Name))
 	}
 	maxAh := 0.0
 	for _, b := range dis {
@@ -125,11 +135,11 @@ func OCV(rec Record, settings *OCVSettings) (*OCVResult, error) {
 		return nil, err
 	}
 	if rate := d.amps / q; rate > s.MaxRate {
-		return nil, fmt.Errorf("%w: %s: discharge at %.3gC is not a low-rate test (at most %gC)", ErrData, rec.Name, rate, s.MaxRate)
+		return nil, notLowRate(fmt.Errorf("%w: %s: discharge at %.3gC is not a low-rate test (at most %gC)", ErrData, rec.Name, rate, s.MaxRate))
 	}
 	ah0 := ah[max(d.start-1, 0)]
 	ahEnd := ah[d.end-1]
-	res := &OCVResult{CapacityAh: q, DischargeAmps: d.amps, SOC: append([]float64(nil), s.Grid...), Start: max(d.start-1, 0), End: d.end}
+	res := &OCVResult{CapacityAh: q, Source: SourceLowRate, DischargeAmps: d.amps, SOC: append([]float64(nil), s.Grid...), Start: max(d.start-1, 0), End: d.end}
 
 	var dz, dv, temps []float64
 	for k := d.start; k < d.end; k++ {
