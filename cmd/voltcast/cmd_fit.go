@@ -107,7 +107,7 @@ func baseType(name string) (*cell.Type, error) {
 func runFit(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlagSet("fit", stderr)
 	var pulses, drives multiFlag
-	ocvPath := fs.String("ocv-test", "", "low-rate (C/20-style) OCV test CSV: a discharge from full to the cut-off, optionally followed by a charge (required)")
+	ocvPath := fs.String("ocv-test", "", "low-rate (C/20-style) OCV test CSV: a discharge from full to the cut-off, optionally followed by a charge; without it (or when the file is not a low-rate test) the OCV comes from the long rests (≥ 30 min) of the test, or of the first --pulse-test")
 	fs.Var(&pulses, "pulse-test", "HPPC-style pulse test CSV (repeatable; one or more per temperature; required)")
 	fs.Var(&drives, "drive-cycle", "drive-cycle CSV starting from full, for the report and the refinement (repeatable)")
 	chemName := fs.String("chemistry", "", "chemistry family (nmc, nca, lfp, …) or built-in type whose limits the fitted type takes; default: generic lithium-ion limits")
@@ -120,7 +120,7 @@ func runFit(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	tempC := fs.Float64("temperature-celsius", math.NaN(), "temperature to assume for CSV files without a temperature column, °C")
 	dups := fs.String("duplicate-timestamps", "error", "a repeated timestamp is an error, or keep-last to keep the later row (counted)")
 	fs.Usage = func() {
-		fmt.Fprintln(stderr, "usage: voltcast fit --ocv-test F.csv --pulse-test F.csv [--pulse-test G.csv ...] [--drive-cycle H.csv ...] [--chemistry NAME] [--name NAME] --out TYPE.json [--report-svg residuals.svg] [--current-sign charge-positive]")
+		fmt.Fprintln(stderr, "usage: voltcast fit [--ocv-test F.csv] --pulse-test F.csv [--pulse-test G.csv ...] [--drive-cycle H.csv ...] [--chemistry NAME] [--name NAME] --out TYPE.json [--report-svg residuals.svg] [--current-sign charge-positive]")
 		fmt.Fprintln(stderr, "CSV columns by name: time_s, current_a (positive = discharge), voltage_v, temp_cell_c|temperature_c|temp_c, optional discharged_ah (the tester's Ah counter), optional profile.")
 		fmt.Fprintln(stderr, "The fitted type describes this cell within the tested range only; its limits come from --chemistry or generic lithium-ion values:")
 		fmt.Fprintln(stderr, "the cell maker's datasheet, local codes and licensed practice take precedence.")
@@ -129,8 +129,8 @@ func runFit(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	if *ocvPath == "" || len(pulses) == 0 || *out == "" {
-		return fmt.Errorf("%w: --ocv-test, at least one --pulse-test and --out are required", errUsage)
+	if len(pulses) == 0 || *out == "" {
+		return fmt.Errorf("%w: at least one --pulse-test and --out are required", errUsage)
 	}
 	if *branches != 1 && *branches != 2 {
 		return fmt.Errorf("%w: --branches must be 1 or 2", errUsage)
@@ -157,14 +157,16 @@ func runFit(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	if p.Name == "" {
 		p.Name = strings.TrimSuffix(baseName(*out), ".json")
 	}
-	ocvRecs, err := readRecords(*ocvPath, lo)
-	if err != nil {
-		return err
+	if *ocvPath != "" {
+		ocvRecs, err := readRecords(*ocvPath, lo)
+		if err != nil {
+			return err
+		}
+		if len(ocvRecs) != 1 {
+			return fmt.Errorf("%w: --ocv-test %s holds %d profiles; give one test", errUsage, *ocvPath, len(ocvRecs))
+		}
+		p.OCVTest = ocvRecs[0]
 	}
-	if len(ocvRecs) != 1 {
-		return fmt.Errorf("%w: --ocv-test %s holds %d profiles; give one test", errUsage, *ocvPath, len(ocvRecs))
-	}
-	p.OCVTest = ocvRecs[0]
 	for _, f := range pulses {
 		rs, err := readRecords(f, lo)
 		if err != nil {
@@ -222,6 +224,11 @@ func printFitReport(w io.Writer, res *fit.Result, out string) {
 	t := res.Type
 	fmt.Fprintf(w, "fitted type %q written to %s (%.2f s)\n", t.Name, out, res.Runtime.Seconds())
 	fmt.Fprintf(w, "capacity %.4f Ah, nominal %.2f V, %d RC branch(es); current positive = discharge\n", t.CapacityAh, t.NominalVolts, len(t.Branches))
+	if res.OCV.Source == fit.SourceRests {
+		fmt.Fprintln(w, "ocv method: rested voltages of a pulse test (no low-rate test); the capacity is that test's, at its own rates: a lower bound of the low-rate capacity")
+	} else {
+		fmt.Fprintln(w, "ocv method: low-rate test")
+	}
 	for _, n := range res.Report.Notes {
 		fmt.Fprintf(w, "note: %s\n", n)
 	}

@@ -43,11 +43,13 @@ type cellSpec struct {
 	dataset string // folder under the datasets root
 	cell    string // label
 	cite    string // authors, DOI, licence (from PROVENANCE.md)
-	ocv     string
-	pulses  []string
-	drives  []string
-	cc      []string
-	cutoff  float64 // V, the dataset's discharge cut-off (PROVENANCE.md)
+	// ocv is the low-rate OCV test; empty: the dataset has none, and the fit takes the
+	// OCV and capacity from the first pulse test's long rests (fit.RestOCV).
+	ocv    string
+	pulses []string
+	drives []string
+	cc     []string
+	cutoff float64 // V, the dataset's discharge cut-off (PROVENANCE.md)
 	// noTemperature: the files have no temperature column; 25 °C is assumed (stated in
 	// the report).
 	noTemperature bool
@@ -57,6 +59,9 @@ type cellSpec struct {
 	blockAverage bool
 	// chemistry is the catalogue family whose limits the fitted type takes.
 	chemistry string
+	// noSOC skips the SOC check on the drives (constant-current discharges used as
+	// voltage profiles rather than drive cycles).
+	noSOC bool
 	// ambient is the test temperature, °C, when the file names do not give it as
 	// "<n>degC" (n prefix = negative): the targets are stated per test temperature.
 	ambient float64
@@ -81,10 +86,29 @@ const (
 	citePan    = "Kollmeyer (2018), Panasonic 18650PF Li-ion Battery Data, Mendeley Data, doi:10.17632/wykht8y7tg.1, CC BY 4.0"
 	citeDMEGC  = "L. Wang et al., Li-ion Battery Electro-Thermal Dataset (DMEGC INR18650), GitHub Silencefrog9305/Digital-Twins-for-Battery-Using-CTA-MTL @ec0fe7c, MIT"
 	citeNissan = "Wiggins, Allu, Wang (ORNL), Battery cell data from a 2013 Nissan Leaf, doi:10.5281/zenodo.2580327, MIT"
+	citeK2     = "ARTS Laboratory (A. Downey), University of South Carolina, K2 26650 LiFePO4 2.6 Ah HPPC and 1C discharge data, GitHub ARTS-Laboratory/Dataset-battery-electro-thermal-characterization @50c2d90 (no DOI), CC BY-SA 4.0"
 )
 
-// modelCells lists the cells validated. k2_lfp26650 is left out: it has no low-rate
-// OCV test to fit from (PROVENANCE.md lists HPPC and 1C discharges only).
+// k2Cells returns the k2_lfp26650 checks, one per temperature: the type is fitted from
+// that temperature's HPPC test alone (it has no low-rate test, so the OCV and capacity
+// come from the HPPC's 90-minute rests, fit.RestOCV) and checked on the 1C discharge at
+// the same temperature (voltage from the true start, and runtime). The 30 °C files are
+// held out and never read.
+func k2Cells() []cellSpec {
+	var out []cellSpec
+	for _, c := range []string{"20", "40", "50"} {
+		out = append(out, cellSpec{
+			dataset: "k2_lfp26650", cell: "K2 26650 (" + c + " °C HPPC)", cite: citeK2,
+			pulses: []string{"hppc_" + c + "degC.csv"},
+			drives: []string{"cc_discharge_" + c + "degC.csv"},
+			cc:     []string{"cc_discharge_" + c + "degC.csv"},
+			cutoff: 2.5, chemistry: "lfp", noSOC: true, // 2.5 V cut-off, LFP inferred (PROVENANCE.md)
+		})
+	}
+	return out
+}
+
+// modelCells lists the cells validated.
 func modelCells(quick bool) []cellSpec {
 	pan := cellSpec{
 		dataset: "pan18650pf", cell: "NCR18650PF", cite: citePan,
@@ -117,7 +141,7 @@ func modelCells(quick bool) []cellSpec {
 		cc:     []string{"cc_discharge_1C_x5.csv", "cc_discharge_2C_x5.csv", "cc_discharge_3C_x5.csv"},
 		cutoff: 3.0, noTemperature: true, ambient: 25, chemistry: "nmc", // the catalogue has no LMO/LNO type; its lithium-ion limits (4.2 V) apply
 	})
-	return cells
+	return append(cells, k2Cells()...)
 }
 
 type voltageRow struct {
@@ -170,15 +194,18 @@ func validateCell(ctx context.Context, root string, spec cellSpec) (*cellResult,
 	read := func(name string) ([]fit.Record, error) {
 		return readRecords(filepath.Join(dir, name), lo)
 	}
-	ocv, err := read(spec.ocv)
-	if err != nil {
-		return nil, err
-	}
 	base, err := baseType(spec.chemistry)
 	if err != nil {
 		return nil, err
 	}
-	p := &fit.Problem{Name: spec.dataset + "-" + spec.cell, OCVTest: ocv[0], Base: base}
+	p := &fit.Problem{Name: spec.dataset + "-" + spec.cell, Base: base}
+	if spec.ocv != "" {
+		ocv, err := read(spec.ocv)
+		if err != nil {
+			return nil, err
+		}
+		p.OCVTest = ocv[0]
+	}
 	for _, f := range spec.pulses {
 		rs, err := read(f)
 		if err != nil {
@@ -217,6 +244,9 @@ func validateCell(ctx context.Context, root string, spec cellSpec) (*cellResult,
 		tc := medianOf(r.Temperature) - cell.CelsiusOffset
 		amb := ambientOf(spec, r.Name)
 		out.voltage = append(out.voltage, voltageRow{spec.cell, r.Name, amb, tc, rmse * 1e3, mx * 1e3, n})
+		if spec.noSOC {
+			continue
+		}
 		row, err := socCheck(typ, r, q)
 		if err != nil {
 			out.skipped = append(out.skipped, fmt.Sprintf("SOC on %s: %v", r.Name, err))
@@ -411,7 +441,7 @@ func modelValidationSections(ctx context.Context, root string, quick bool, progr
 
 func writeFitSection(b *strings.Builder, rs []*cellResult) {
 	b.WriteString("## Fitted types\n\n")
-	b.WriteString("Each cell's type is fitted by `voltcast fit` (package model/fit) from that cell's low-rate OCV test and pulse test(s) only, with default settings " +
+	b.WriteString("Each cell's type is fitted by `voltcast fit` (package model/fit) from that cell's low-rate OCV test and pulse test(s) only (k2_lfp26650 has no low-rate test: one type per temperature from that temperature's HPPC test alone, its OCV and capacity from the HPPC's long rests), with default settings " +
 		"(2 RC branches, the fastest a Butler–Volmer charge-transfer branch where the pulses span several current magnitudes, OCV rows anchored to the pulse tests' rested voltages, Arrhenius rows between and beyond the tested temperatures). Nothing below is tuned on the drive cycles, profiles or constant-current discharges.\n\n")
 	b.WriteString("| dataset | cell | fitted from | capacity Ah | pulse-window RMSE mV | notes |\n|---|---|---|---|---|---|\n")
 	for _, r := range rs {
@@ -422,6 +452,9 @@ func writeFitSection(b *strings.Builder, rs []*cellResult) {
 			}
 		}
 		from := r.spec.ocv + " + " + strings.Join(r.spec.pulses, ", ")
+		if r.spec.ocv == "" {
+			from = "rests and pulses of " + strings.Join(r.spec.pulses, ", ") + " (no low-rate test)"
+		}
 		notes := strings.Join(r.fitted.Report.Notes, "; ")
 		if r.spec.noTemperature {
 			notes = "no temperature column: 25 °C assumed; " + notes

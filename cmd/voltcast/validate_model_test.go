@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -144,7 +145,7 @@ func TestFitCommandBadInput(t *testing.T) {
 		want string
 		code int
 	}{
-		{[]string{"fit", "--out", "x.json"}, "--ocv-test, at least one --pulse-test and --out are required", 2},
+		{[]string{"fit", "--out", "x.json"}, "at least one --pulse-test and --out are required", 2},
 		{[]string{"fit", "--ocv-test", bad, "--pulse-test", bad, "--out", filepath.Join(dir, "t.json")}, "duplicated timestamp", 1},
 		{[]string{"fit", "--ocv-test", bad, "--pulse-test", bad, "--out", "t.json", "--current-sign", "up"}, "--current-sign", 2},
 		{[]string{"fit", "--ocv-test", bad, "--pulse-test", bad, "--out", "t.json", "--chemistry", "unobtainium"}, "unknown --chemistry", 2},
@@ -154,5 +155,109 @@ func TestFitCommandBadInput(t *testing.T) {
 		if code != tc.code || !strings.Contains(stderr.String(), tc.want) {
 			t.Errorf("%v: exit %d, stderr %q; want exit %d mentioning %q", tc.args, code, stderr.String(), tc.code, tc.want)
 		}
+	}
+}
+
+// k2 20 °C regression guards: the k2_lfp26650 type fitted from hppc_20degC.csv alone
+// (ARTS Laboratory, University of South Carolina, GitHub
+// ARTS-Laboratory/Dataset-battery-electro-thermal-characterization @50c2d90, no DOI,
+// CC BY-SA 4.0) misses both issue 3 targets on the 1C discharge, so CI holds the
+// measured numbers plus a margin; docs/validation.md reports the misses and why (the
+// slow branch fitted to the HPPC's 265 s steps and 90 min rests overstates the
+// polarisation under sustained load). 20 °C is the dataset's nearest temperature to the
+// targets' 25 °C.
+const (
+	k2VoltageGuardMV  = 115 // measured 103.6 mV (target ≤ 15 mV)
+	k2RuntimeGuardPct = 3.6 // measured −3.2 % (target within 2 %)
+)
+
+// TestValidationK2Subset is the k2_lfp26650 part of the CI subset: the cell has no
+// low-rate test, so its type is fitted from the 20 °C HPPC test alone (OCV from the
+// 90 min rests); checked on the 20 °C 1C discharge.
+func TestValidationK2Subset(t *testing.T) {
+	root := datasetsOrSkip(t, "k2_lfp26650")
+	spec := k2Cells()[0]
+	if spec.pulses[0] != "hppc_20degC.csv" {
+		t.Fatalf("first k2 spec fits from %v; want the 20 °C HPPC", spec.pulses)
+	}
+	res, err := validateCell(context.Background(), root, spec)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if src := res.fitted.OCV.Source; src != "rests" {
+		t.Errorf("OCV source %q; want the HPPC rests", src)
+	}
+	// PROVENANCE.md: the HPPC test ends at ≈2.19 Ah discharged; the 1C discharge
+	// delivers 2.197 Ah at 20 °C. The HPPC capacity is at its own rates.
+	if c := res.fitted.Type.CapacityAh; math.Abs(c-2.19) > 0.01 {
+		t.Errorf("capacity %.4f Ah; want ≈2.19 Ah (PROVENANCE.md)", c)
+	}
+	if len(res.voltage) != 1 || len(res.runtime) != 1 || len(res.soc) != 0 {
+		t.Fatalf("%d voltage, %d runtime, %d SOC rows; want 1, 1, 0", len(res.voltage), len(res.runtime), len(res.soc))
+	}
+	v, r := res.voltage[0], res.runtime[0]
+	t.Logf("%s: voltage RMSE %.1f mV (max %.0f); runtime measured %.0f s, forecast %.0f s (%+.2f %%)", v.profile, v.rmse, v.max, r.measured, r.forecastSec, r.errPct)
+	// Measured 1C time to 2.5 V: 2.197 Ah / 2.60 A ≈ 3040 s (PROVENANCE.md).
+	if math.Abs(r.measured-3041) > 15 {
+		t.Errorf("measured runtime %.0f s; want ≈3041 s (2.197 Ah at 2.60 A, PROVENANCE.md)", r.measured)
+	}
+	if !(v.rmse <= k2VoltageGuardMV) {
+		t.Errorf("voltage RMSE %.1f mV; want ≤ %d mV (regression guard; target ≤ 15 mV missed, see docs/validation.md)", v.rmse, k2VoltageGuardMV)
+	}
+	if !(math.Abs(r.errPct) <= k2RuntimeGuardPct) {
+		t.Errorf("runtime error %+.2f %%; want within %g %% (regression guard; target 2 %% missed, see docs/validation.md)", r.errPct, k2RuntimeGuardPct)
+	}
+}
+
+// TestFitCommandWithoutLowRateTest: `voltcast fit` on the k2_lfp26650 HPPC test (no
+// low-rate test exists for that cell) without --ocv-test, and with the HPPC file given
+// as --ocv-test (which used to fail as "not a low-rate test"), takes the OCV from the
+// rests, says so, and keeps the LFP catalogue's hysteresis.
+func TestFitCommandWithoutLowRateTest(t *testing.T) {
+	root := datasetsOrSkip(t, "k2_lfp26650")
+	hppc := filepath.Join(root, "k2_lfp26650", "hppc_20degC.csv")
+	for _, extra := range [][]string{nil, {"--ocv-test", hppc}} {
+		out := filepath.Join(t.TempDir(), "k2.json")
+		args := append([]string{"fit", "--pulse-test", hppc, "--chemistry", "lfp", "--out", out}, extra...)
+		var stdout, stderr bytes.Buffer
+		if code := run(context.Background(), args, &stdout, &stderr); code != 0 {
+			t.Fatalf("%v: exit %d: %s", args, code, stderr.String())
+		}
+		for _, want := range []string{"ocv method: rested voltages", "lower bound of the low-rate capacity", "hysteresis kept from the base type"} {
+			if !strings.Contains(stdout.String(), want) {
+				t.Errorf("%v: report lacks %q:\n%s", extra, want, stdout.String())
+			}
+		}
+		typ, err := loadType(out)
+		if err != nil {
+			t.Fatalf("loadType: %v", err)
+		}
+		// PROVENANCE.md: the HPPC test ends at ≈2.19 Ah discharged.
+		if math.Abs(typ.CapacityAh-2.19) > 0.01 {
+			t.Errorf("%v: capacity %.4f Ah; want ≈2.19 Ah", extra, typ.CapacityAh)
+		}
+		if typ.Hysteresis.Max <= 0 {
+			t.Errorf("%v: hysteresis %+v; want the LFP catalogue's kept", extra, typ.Hysteresis)
+		}
+	}
+}
+
+// TestFitCommandNeitherLowRateNorRests: a file with one 1C discharge and no rests is
+// refused as an OCV test with the strict low-rate error, naming the missing rests.
+func TestFitCommandNeitherLowRateNorRests(t *testing.T) {
+	dir := t.TempDir()
+	f := filepath.Join(dir, "cc.csv")
+	var b strings.Builder
+	b.WriteString("time_s,current_a,voltage_v,temp_c\n")
+	for k := range 3000 {
+		fmt.Fprintf(&b, "%d,2.6,%.4f,25\n", k, 3.3-0.3*float64(k)/3000)
+	}
+	if err := os.WriteFile(f, []byte(b.String()), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	var stdout, stderr bytes.Buffer
+	code := run(context.Background(), []string{"fit", "--ocv-test", f, "--pulse-test", f, "--out", filepath.Join(dir, "t.json")}, &stdout, &stderr)
+	if code != 1 || !strings.Contains(stderr.String(), "not a low-rate test") || !strings.Contains(stderr.String(), "rest(s) of at least") {
+		t.Errorf("exit %d, stderr %q; want exit 1 with the low-rate error and the missing rests", code, stderr.String())
 	}
 }
