@@ -40,11 +40,19 @@ func benchType(b testing.TB) *Type {
 }
 
 // BenchmarkStep is one Pack.Step of a 2-RC cell with tabulated parameters (four table
-// lookups and two exponentials per step), with ohmic branches and with the fast branch a
-// charge-transfer branch (one more table lookup and an asinh).
+// values, read in one grouped lookup, and two exponentials per step), with ohmic
+// branches, with the fast branch a charge-transfer branch (one more table lookup and an
+// asinh), and with ohmic branches in a pack written as a struct literal (one lookup per
+// table).
 func BenchmarkStep(b *testing.B) {
-	run := func(b *testing.B, typ *Type) {
-		p := Pack{Type: typ, Series: 1, Parallel: 1}
+	run := func(b *testing.B, typ *Type, literal bool) {
+		p, err := NewPack(typ, 1, 1)
+		if err != nil {
+			b.Fatal(err)
+		}
+		if literal {
+			p = Pack{Type: typ, Series: 1, Parallel: 1}
+		}
 		tk := Kelvin(10)
 		s := State{SOC: 0.6}
 		b.ReportAllocs()
@@ -53,12 +61,13 @@ func BenchmarkStep(b *testing.B) {
 			s.SOC = 0.6
 		}
 	}
-	b.Run("ohmic", func(b *testing.B) { run(b, benchType(b)) })
+	b.Run("ohmic", func(b *testing.B) { run(b, benchType(b), false) })
 	b.Run("charge-transfer", func(b *testing.B) {
 		typ := benchType(b)
 		typ.Branches[0].ExchangeCurrent = &Param{Table: typ.R0.Table}
-		run(b, typ)
+		run(b, typ, false)
 	})
+	b.Run("literal", func(b *testing.B) { run(b, benchType(b), true) })
 }
 
 func TestStepNoAllocs(t *testing.T) {

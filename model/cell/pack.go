@@ -20,13 +20,28 @@ type Pack struct {
 	Parallel         int
 	CapacityFactor   float64
 	ResistanceFactor float64
+
+	// lookup reads every branch's R and C in one table lookup; set by NewPack, nil
+	// in a struct literal (see lookup).
+	lookup *lookup
 }
 
 // NewPack returns a new (unaged) pack of series×parallel cells of t, validating the
 // counts (1–1000 each).
+//
+// A pack from NewPack steps faster than one written as a struct literal when every RC
+// branch parameter of t is a table on one state-of-charge grid and one set of
+// temperatures: [Pack.Step] then finds the table segment once for all of them. Both
+// give the same results, bit for bit. The fast path stays in use in copies of the pack
+// and while the pack's Type and the type's branch tables are the ones NewPack saw;
+// otherwise Step falls back to reading each parameter on its own.
 func NewPack(t *Type, series, parallel int) (Pack, error) {
 	p := Pack{Type: t, Series: series, Parallel: parallel}
-	return p, p.Validate()
+	if err := p.Validate(); err != nil {
+		return p, err
+	}
+	p.lookup = newLookup(t)
+	return p, nil
 }
 
 // Validate checks the pack's counts and health factors (not the type).
@@ -128,28 +143,38 @@ func (p Pack) Step(s *State, i, dt, tk float64) {
 	ic := i / float64(p.Parallel)
 	z := s.SOC
 	rf := p.resFactor()
-	for k := range t.Branches {
-		b := &t.Branches[k]
-		// Tables are read directly rather than through Param.At, which is too large
-		// to inline: one call fewer per parameter in the simulator's innermost loop.
-		var r, c float64
-		if b.R.Table != nil {
-			r = b.R.Table.At(z, tk)
-		} else {
-			r = b.R.At(z, tk)
+	if l := p.lookup; l != nil && l.typ == t && len(t.Branches) == l.nb {
+		l.advance(s, t, ic, z, dt, tk, rf)
+	} else {
+		for k := range t.Branches {
+			b := &t.Branches[k]
+			// Tables and constants are read directly rather than through Param.At,
+			// which is too large to inline: one call fewer per parameter.
+			var r, c float64
+			switch {
+			case b.R.Table != nil:
+				r = b.R.Table.At(z, tk)
+			case b.R.ActivationEnergy == 0:
+				r = b.R.Value
+			default:
+				r = b.R.At(z, tk)
+			}
+			switch {
+			case b.C.Table != nil:
+				c = b.C.Table.At(z, tk)
+			case b.C.ActivationEnergy == 0:
+				c = b.C.Value
+			default:
+				c = b.C.At(z, tk)
+			}
+			r *= rf
+			a := math.Exp(-dt / (r * c))
+			u := ic
+			if b.ExchangeCurrent != nil {
+				u, _ = b.Drive(ic, z, tk)
+			}
+			s.V[k] = a*s.V[k] + r*(1-a)*u
 		}
-		r *= rf
-		if b.C.Table != nil {
-			c = b.C.Table.At(z, tk)
-		} else {
-			c = b.C.At(z, tk)
-		}
-		a := math.Exp(-dt / (r * c))
-		u := ic
-		if b.ExchangeCurrent != nil {
-			u, _ = b.Drive(ic, z, tk)
-		}
-		s.V[k] = a*s.V[k] + r*(1-a)*u
 	}
 	eta := 1.0
 	if ic < 0 {

@@ -331,11 +331,10 @@ func (sf *Surface) NumTemps() int { return len(sf.temps) }
 // Curve returns the curve at the j-th temperature.
 func (sf *Surface) Curve(j int) *Curve { return sf.curves[j] }
 
-// bracket returns the pair of curve indices around tk and the weight of the upper one:
+// bracket returns the pair of indices of the temperatures t around tk and the weight of the upper one:
 // j with temps[j] < tk ≤ temps[j+1] and w in (0, 1], or w = 0 and the single curve j
 // to use at or beyond the ends.
-func (sf *Surface) bracket(tk float64) (j int, w float64) {
-	t := sf.temps
+func bracket(t []float64, tk float64) (j int, w float64) {
 	n := len(t)
 	if n == 1 || tk <= t[0] {
 		return 0, 0
@@ -366,7 +365,7 @@ func (sf *Surface) outer(s float64, j int, w float64) (v, d float64) {
 
 // At returns f(s, tk) with tk in kelvin.
 func (sf *Surface) At(s, tk float64) float64 {
-	j, w := sf.bracket(tk)
+	j, w := bracket(sf.temps, tk)
 	x := sf.x
 	if !(s > x[0] && s < x[len(x)-1]) {
 		v, _ := sf.outer(s, j, w)
@@ -391,7 +390,7 @@ func (sf *Surface) Deriv(s, tk float64) float64 {
 // AtDeriv returns At(s, tk) and Deriv(s, tk), bit for bit, finding the grid segment and
 // the temperature bracket once.
 func (sf *Surface) AtDeriv(s, tk float64) (v, d float64) {
-	j, w := sf.bracket(tk)
+	j, w := bracket(sf.temps, tk)
 	x := sf.x
 	if !(s > x[0] && s < x[len(x)-1]) {
 		return sf.outer(s, j, w)
@@ -498,3 +497,97 @@ func (sf *Surface) UnmarshalJSON(b []byte) error {
 
 // CelsiusOffset converts °C to K: T[K] = T[°C] + CelsiusOffset (SI definition).
 const CelsiusOffset = 273.15
+
+// MaxGroup is the largest number of surfaces a [Group] holds.
+const MaxGroup = 8
+
+// Group is a set of surfaces on one grid (the same state-of-charge knots and the same
+// temperatures) evaluated together: one segment search and one temperature bracket
+// serve every member, and the pieces that one lookup blends lie side by side. Its
+// values are those of the members' [Surface.At], bit for bit. Build it with
+// [NewGroup]; it is immutable and safe for concurrent use.
+type Group struct {
+	grid
+	temps   []float64
+	members []*Surface
+	// p[(k·len(temps)+j)·len(members)+m] is piece k of member m's curve j.
+	p []poly
+}
+
+// NewGroup returns the group of the given surfaces, and false if there are none, more
+// than [MaxGroup], a nil one, or two that do not share their knots and temperatures
+// exactly. The surfaces are kept, not copied; they are immutable.
+func NewGroup(members ...*Surface) (*Group, bool) {
+	if len(members) == 0 || len(members) > MaxGroup {
+		return nil, false
+	}
+	for _, sf := range members {
+		if sf == nil || !equal(sf.x, members[0].x) || !equal(sf.temps, members[0].temps) {
+			return nil, false
+		}
+	}
+	first := members[0]
+	nt, nm := len(first.temps), len(members)
+	g := &Group{grid: first.grid, temps: first.temps, members: append([]*Surface(nil), members...)}
+	g.p = make([]poly, (len(g.x)-1)*nt*nm)
+	for m, sf := range members {
+		for k := range len(g.x) - 1 {
+			for j := range nt {
+				g.p[(k*nt+j)*nm+m] = sf.p[k*nt+j]
+			}
+		}
+	}
+	return g, true
+}
+
+func equal(a, b []float64) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	for i := range a {
+		if a[i] != b[i] {
+			return false
+		}
+	}
+	return true
+}
+
+// Len returns the number of surfaces in the group.
+func (g *Group) Len() int { return len(g.members) }
+
+// Member returns the m-th surface of the group.
+func (g *Group) Member(m int) *Surface { return g.members[m] }
+
+// At writes f_m(s, tk) of every member m into dst[m] (tk in kelvin), the same values
+// as the members' [Surface.At]. It panics if dst is shorter than [Group.Len]. It does
+// not allocate.
+func (g *Group) At(dst []float64, s, tk float64) {
+	nm := len(g.members)
+	if len(dst) < nm {
+		panic("table: Group.At destination too short")
+	}
+	dst = dst[:nm]
+	x := g.x
+	if !(s > x[0] && s < x[len(x)-1]) {
+		for m, sf := range g.members {
+			dst[m] = sf.At(s, tk)
+		}
+		return
+	}
+	j, w := bracket(g.temps, tk)
+	k := g.search(s)
+	ds := s - x[k]
+	i := (k*len(g.temps) + j) * nm
+	if w == 0 {
+		p := g.p[i : i+nm]
+		for m := range dst {
+			dst[m] = p[m].at(ds)
+		}
+		return
+	}
+	p := g.p[i : i+2*nm]
+	for m := range dst {
+		v := p[m].at(ds)
+		dst[m] = v + w*(p[nm+m].at(ds)-v)
+	}
+}
