@@ -115,7 +115,10 @@ func LithiumLimits(cutoff float64) cell.Limits {
 //     also gives the OCV its temperature dependence. The low-rate curve keeps its own
 //     row when no pulse test is within 2 K of its temperature.
 //  4. The parameters become tables over state of charge (the union of the level
-//     states of charge, plus 0 and 1 with the end values held) and temperature. A
+//     states of charge, plus 0 and 1 with the end values held) and temperature. Where
+//     a temperature's pulse tests stopped more than 0.1 V above the low-rate test's
+//     end voltage, R0 below the lowest level follows Shepherd's polarisation form
+//     (see shepherdLow) instead of being held. A
 //     branch fitted as a charge-transfer branch at some level gets an exchange-current
 //     table (interpolated in ln i₀; levels where it came out ohmic count as i₀ = 32×
 //     their largest pulse current). Between tested temperatures rows are inserted at
@@ -239,6 +242,8 @@ type tempGroup struct {
 	tk     float64
 	levels []Level
 	rests  []RestPoint
+	// minVolts is the lowest terminal voltage of the pooled pulse tests, V.
+	minVolts float64
 }
 
 func groupByTemperature(prs []*PulseResult) []tempGroup {
@@ -254,9 +259,10 @@ func groupByTemperature(prs []*PulseResult) []tempGroup {
 			g := &gs[n-1]
 			g.levels = append(g.levels, pr.Levels...)
 			g.rests = append(g.rests, pr.Rests...)
+			g.minVolts = math.Min(g.minVolts, pr.MinVolts)
 			continue
 		}
-		gs = append(gs, tempGroup{tk: pr.TemperatureK, levels: append([]Level(nil), pr.Levels...), rests: append([]RestPoint(nil), pr.Rests...)})
+		gs = append(gs, tempGroup{tk: pr.TemperatureK, levels: append([]Level(nil), pr.Levels...), rests: append([]RestPoint(nil), pr.Rests...), minVolts: pr.MinVolts})
 	}
 	// The temperature of a pooled group is the median of its levels'.
 	for j := range gs {
@@ -340,6 +346,28 @@ func assemble(p *Problem, src Record, ocv *OCVResult, base *table.Curve, prs []*
 		}
 	}
 	grid := mergeGrid(zs, 0.02)
+	// Low-SOC extension (see shepherdLow) for temperatures whose pulse tests stopped
+	// more than shepherdShortVolts above the low-rate test's end voltage (the lab's
+	// cut-off): below their lowest level the tables would otherwise be held flat.
+	labCutoff := lastDischargeVolts(src)
+	short := make([]bool, len(gs))
+	anyShort := false
+	for j, g := range gs {
+		short[j] = g.minVolts > labCutoff+shepherdShortVolts
+		anyShort = anyShort || short[j]
+	}
+	if anyShort {
+		for j, g := range gs {
+			if !short[j] {
+				continue
+			}
+			lz := make([]float64, len(g.levels))
+			for k, l := range g.levels {
+				lz[k] = l.SOC
+			}
+			grid = lowSOCGrid(grid, lz)
+		}
+	}
 	var ptemps []float64
 	for _, g := range gs {
 		ptemps = append(ptemps, g.tk)
@@ -372,6 +400,26 @@ func assemble(p *Problem, src Record, ocv *OCVResult, base *table.Curve, prs []*
 	resVals := [][][]float64{levelRows(func(l Level) float64 { return l.R0.Value })}
 	for j := range nb {
 		resVals = append(resVals, levelRows(func(l Level) float64 { return l.R[j].Value }))
+	}
+	if anyShort {
+		var parts []string
+		for j, g := range gs {
+			if !short[j] {
+				continue
+			}
+			lz := make([]float64, len(g.levels))
+			lv := make([]float64, len(g.levels))
+			for k, l := range g.levels {
+				lz[k], lv[k] = l.SOC, l.R0.Value
+			}
+			if k, ok := shepherdLow(resVals[0][j], grid, lz, lv); ok {
+				parts = append(parts, fmt.Sprintf("%.1f °C K = %.2f mΩ", g.tk-cell.CelsiusOffset, k*1e3))
+			} else {
+				parts = append(parts, fmt.Sprintf("%.1f °C none (K = %.2f mΩ not positive and significant)", g.tk-cell.CelsiusOffset, k*1e3))
+			}
+		}
+		notes = append(notes, fmt.Sprintf("R0 below the lowest pulse level (pulse test stopped short of the cut-off): R0(z) = R0(z_min) + K·(1/z − 1/z_min), Shepherd's polarisation form fitted to the lowest %d levels at SOC ≤ %.1f, capped at %g× R0(z_min): %s",
+			shepherdMaxLevel, shepherdMaxSOC, float64(shepherdCap), strings.Join(parts, ", ")))
 	}
 	var capVals [][][]float64
 	for j := range nb {
@@ -779,4 +827,86 @@ func pulseReport(r Record, typ *cell.Type, pr *PulseResult) FileReport {
 		fr.Max = math.Max(fr.Max, math.Abs(e))
 	}
 	return fr
+}
+
+// Low-SOC extension of the resistance tables (Shepherd, J. Electrochem. Soc.
+// 112(7):657–664, 1965; REFERENCE.md §2.5: the polarisation term K·Q/(Q − it)·i is a
+// resistance K/z). Below the lowest pulse level a table would otherwise be held flat.
+const (
+	shepherdMaxSOC   = 0.5   // levels at or below this SOC enter the fit
+	shepherdMaxLevel = 4     // at most this many of the lowest levels
+	shepherdMinLevel = 3     // at least this many, else no extension
+	shepherdTStat    = 2     // K must exceed this many standard errors
+	shepherdCap      = 4     // extension capped at this multiple of the lowest level's value
+	shepherdMinSOC   = 0.005 // 1/z is evaluated at no lower SOC (the value at SOC 0)
+	// shepherdShortVolts: a pulse test whose lowest voltage stays this far above the
+	// low-rate test's end voltage did not reach the cut-off.
+	shepherdShortVolts = 0.1
+)
+
+// lowSOCGrid adds grid points below the lowest level SOC so that the table's linear
+// interpolation follows a 1/z extension: geometric steps of 1.25 down to 0.01.
+func lowSOCGrid(grid, zs []float64) []float64 {
+	zmin := slicesMin(zs)
+	var add []float64
+	for z := zmin / 1.25; z > 0.01; z /= 1.25 {
+		add = append(add, z)
+	}
+	out := append(append([]float64(nil), grid...), add...)
+	sort.Float64s(out)
+	// drop points closer than 0.005 to a neighbour, keeping level points and 0.
+	var m []float64
+	for _, z := range out {
+		if len(m) > 0 && z-m[len(m)-1] < 0.005 {
+			continue
+		}
+		m = append(m, z)
+	}
+	return m
+}
+
+// shepherdLow fits R(z) = a + K/z by least squares to the lowest levels (lz, lv)
+// and, when K is positive and significant, replaces row below the lowest level by
+// R(zmin) + K·(1/z − 1/zmin), capped at shepherdCap·R(zmin). It reports K.
+func shepherdLow(row, grid, lz, lv []float64) (float64, bool) {
+	xs, ys := sortedPairs(lz, lv)
+	n := 0
+	for n < len(xs) && n < shepherdMaxLevel && xs[n] <= shepherdMaxSOC {
+		n++
+	}
+	if n < shepherdMinLevel || xs[0] <= 0 {
+		return 0, false
+	}
+	var sx, sy, sxx, sxy float64
+	for k := range n {
+		x := 1 / xs[k]
+		sx += x
+		sy += ys[k]
+		sxx += x * x
+		sxy += x * ys[k]
+	}
+	fn := float64(n)
+	den := fn*sxx - sx*sx
+	if den <= 0 {
+		return 0, false
+	}
+	kk := (fn*sxy - sx*sy) / den
+	a := (sy - kk*sx) / fn
+	var sse float64
+	for k := range n {
+		e := ys[k] - a - kk/xs[k]
+		sse += e * e
+	}
+	se := math.Sqrt(sse / float64(n-2) * fn / den)
+	if !(kk > 0) || kk < shepherdTStat*se {
+		return kk, false
+	}
+	zmin, r := xs[0], ys[0]
+	for g, z := range grid {
+		if z >= zmin {
+			break
+		}
+		row[g] = math.Min(r+kk*(1/math.Max(z, shepherdMinSOC)-1/zmin), shepherdCap*r)
+	}
+	return kk, true
 }

@@ -335,3 +335,35 @@ func BenchmarkPulses(b *testing.B) {
 		}
 	}
 }
+
+// TestShepherdLow: resistances following R = a + K/z exactly (Shepherd 1965's
+// polarisation term, REFERENCE.md §2.5) give back K, and the table below the lowest
+// level follows the same form up to the cap (our own arithmetic).
+func TestShepherdLow(t *testing.T) {
+	const a, k = 0.02, 0.004
+	lz := []float64{0.8, 0.5, 0.4, 0.3, 0.2}
+	lv := make([]float64, len(lz))
+	for i, z := range lz {
+		lv[i] = a + k/z
+	}
+	grid := []float64{0, 0.01, 0.1, 0.2, 0.5}
+	row := []float64{9, 9, 9, lv[4], lv[1]}
+	got, ok := shepherdLow(row, grid, lz, lv)
+	if !ok || math.Abs(got-k) > 1e-9 {
+		t.Fatalf("K = %g (ok %v); want %g", got, ok, k)
+	}
+	if want := a + k/0.1; math.Abs(row[2]-want) > 1e-9 {
+		t.Errorf("R(0.1) = %g; want %g", row[2], want)
+	}
+	if want := shepherdCap * lv[4]; math.Abs(row[0]-want) > 1e-12 || math.Abs(row[1]-want) > 1e-12 {
+		t.Errorf("R(0), R(0.01) = %g, %g; want the cap %g", row[0], row[1], want)
+	}
+	// Falling resistances toward empty (K < 0) leave the row alone.
+	for i, z := range lz {
+		lv[i] = a - 0.001/z
+	}
+	row = []float64{9, 9, 9, 9, 9}
+	if _, ok := shepherdLow(row, grid, lz, lv); ok || row[0] != 9 {
+		t.Errorf("negative K extended the table: %v", row)
+	}
+}

@@ -118,6 +118,8 @@ type PulseResult struct {
 	RestAmps float64
 	// Gaps counts logging gaps found with the lab counter.
 	Gaps int
+	// MinVolts is the lowest terminal voltage of the test, V.
+	MinVolts float64
 }
 
 // Window is a stretch of a pulse test simulated as one piece: it starts at a rested
@@ -401,7 +403,7 @@ func Pulses(ctx context.Context, rec Record, ocv *table.Curve, q float64, settin
 			z[k] = 1 - (ah[k]-lo)/q
 		}
 	}
-	res := &PulseResult{Name: rec.Name, RestAmps: q / 100}
+	res := &PulseResult{Name: rec.Name, RestAmps: q / 100, MinVolts: slicesMin(rec.Voltage)}
 	restA := res.RestAmps
 	n := rec.Len()
 	rest := func(k int) bool { return math.Abs(rec.Current[k]) < restA }
