@@ -245,7 +245,7 @@ func CheckSOC(field string, z float64) error {
 
 func checkParam(field string, p *Param, positive bool) error {
 	if p.Table != nil {
-		for j := range p.Table.Temps() {
+		for j := range p.Table.NumTemps() {
 			c := p.Table.Curve(j)
 			for i := range c.Len() {
 				_, v := c.Knot(i)
@@ -263,6 +263,16 @@ func checkParam(field string, p *Param, positive bool) error {
 		return Invalid(field+".activation_energy_joules_per_mole", "must be in [0, 200000] J/mol, got %g", p.ActivationEnergy)
 	}
 	return nil
+}
+
+// branchErr prefixes the field of a branch parameter's error with the branch; the
+// index is formatted only on failure, so a valid type validates without allocating.
+func branchErr(k int, err error) error {
+	var fe *FieldError
+	if errors.As(err, &fe) {
+		return &FieldError{Field: fmt.Sprintf("rc_branches[%d].%s", k, fe.Field), Reason: fe.Reason}
+	}
+	return err
 }
 
 func sign(positive bool) string {
@@ -314,16 +324,15 @@ func (t *Type) Validate() error {
 		return Invalid("rc_branches", "at most %d RC branches, got %d", MaxBranches, len(t.Branches))
 	}
 	for k := range t.Branches {
-		f := fmt.Sprintf("rc_branches[%d]", k)
-		if err := checkParam(f+".resistance_ohms", &t.Branches[k].R, true); err != nil {
-			return err
+		if err := checkParam("resistance_ohms", &t.Branches[k].R, true); err != nil {
+			return branchErr(k, err)
 		}
-		if err := checkParam(f+".capacitance_farads", &t.Branches[k].C, true); err != nil {
-			return err
+		if err := checkParam("capacitance_farads", &t.Branches[k].C, true); err != nil {
+			return branchErr(k, err)
 		}
 		if x := t.Branches[k].ExchangeCurrent; x != nil {
-			if err := checkParam(f+".exchange_current_amps", x, true); err != nil {
-				return err
+			if err := checkParam("exchange_current_amps", x, true); err != nil {
+				return branchErr(k, err)
 			}
 		}
 	}
@@ -363,14 +372,16 @@ func (l *Limits) validate(rechargeable bool) error {
 	if l.MaxDischargeRate <= 0 {
 		return Invalid("limits.max_discharge_c_rate", "must be positive, got %g", l.MaxDischargeRate)
 	}
-	for _, f := range []struct {
+	// Whole field names are constants, so a valid type validates without allocating
+	// (a forecast validates its pack on every call).
+	for _, f := range [...]struct {
 		name string
 		v    float64
 	}{
-		{"charge_min_celsius", l.ChargeMinCelsius}, {"charge_max_celsius", l.ChargeMaxCelsius},
-		{"discharge_min_celsius", l.DischargeMinCelsius}, {"discharge_max_celsius", l.DischargeMaxCelsius},
+		{"limits.charge_min_celsius", l.ChargeMinCelsius}, {"limits.charge_max_celsius", l.ChargeMaxCelsius},
+		{"limits.discharge_min_celsius", l.DischargeMinCelsius}, {"limits.discharge_max_celsius", l.DischargeMaxCelsius},
 	} {
-		if err := CheckCelsius("limits."+f.name, f.v); err != nil {
+		if err := CheckCelsius(f.name, f.v); err != nil {
 			return err
 		}
 	}

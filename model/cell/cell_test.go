@@ -203,3 +203,16 @@ func TestTypeJSONRoundTrip(t *testing.T) {
 		t.Errorf("round-tripped type behaves differently: %+v vs %+v", s1, s2)
 	}
 }
+
+// TestValidateNoAllocs keeps validation off the allocation budget of a forecast, which
+// validates its pack on every call.
+func TestValidateNoAllocs(t *testing.T) {
+	typ := testType(t)
+	if n := testing.AllocsPerRun(100, func() {
+		if err := typ.Validate(); err != nil {
+			t.Fatal(err)
+		}
+	}); n != 0 {
+		t.Errorf("Validate allocates %v times per call; want 0", n)
+	}
+}
