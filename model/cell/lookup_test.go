@@ -1,6 +1,7 @@
 package cell
 
 import (
+	"math"
 	"math/rand/v2"
 	"sync"
 	"testing"
@@ -130,5 +131,25 @@ func TestGroupedStepNoAllocs(t *testing.T) {
 	s := State{SOC: 0.5}
 	if n := testing.AllocsPerRun(100, func() { p.Step(&s, 3, 1, Kelvin(25)) }); n != 0 {
 		t.Errorf("Step of a pack from NewPack allocates %g times per step; want 0", n)
+	}
+}
+
+// TestPreparedStepsAsLiteral checks that Prepared, like NewPack, changes only how fast a
+// pack steps, not what it computes.
+func TestPreparedStepsAsLiteral(t *testing.T) {
+	typ := benchType(t)
+	lit := Pack{Type: typ, Series: 3, Parallel: 2}
+	prep := lit.Prepared()
+	if prep.lookup == nil {
+		t.Fatal("Prepared built no lookup for a type with tabulated branches")
+	}
+	s1, s2 := State{SOC: 0.9}, State{SOC: 0.9}
+	for k := range 200 {
+		i := 3 * math.Sin(float64(k)/7)
+		lit.Step(&s1, i, 2, 290)
+		prep.Step(&s2, i, 2, 290)
+	}
+	if s1 != s2 {
+		t.Errorf("Prepared pack stepped to %+v; struct literal to %+v", s2, s1)
 	}
 }

@@ -44,6 +44,16 @@ func NewPack(t *Type, series, parallel int) (Pack, error) {
 	return p, nil
 }
 
+// Prepared returns p with the grouped parameter lookup that [NewPack] builds, for code
+// that steps a pack many times (simulations, forecasts, charge plans) and received it
+// as a struct literal. It allocates at most once; the result steps bit for bit as p.
+func (p Pack) Prepared() Pack {
+	if p.lookup == nil || p.lookup.typ != p.Type {
+		p.lookup = newLookup(p.Type)
+	}
+	return p
+}
+
 // Validate checks the pack's counts and health factors (not the type).
 func (p Pack) Validate() error {
 	if p.Type == nil {

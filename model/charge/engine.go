@@ -436,7 +436,7 @@ func (r *run) hold(a, dt float64) {
 func (e *engine) simulate(a float64, targetOnly bool) outcome {
 	e.sims++
 	req := e.req
-	r := &run{e: e, p: req.Pack, tk: cell.Kelvin(req.TemperatureCelsius), horizon: e.set.MaxSeconds,
+	r := &run{e: e, p: req.Pack.Prepared(), tk: cell.Kelvin(req.TemperatureCelsius), horizon: e.set.MaxSeconds,
 		targetOnly: targetOnly, s: req.State}
 	if req.State.SOC >= e.target {
 		r.reachTarget(0, 0, r.volts(&r.s, 0), r.s.SOC, 0, 0)

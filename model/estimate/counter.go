@@ -40,7 +40,7 @@ func NewCounter(p cell.Pack, soc float64, s *Settings) (*Counter, error) {
 	if err := s.Validate(); err != nil {
 		return nil, err
 	}
-	c := &Counter{pack: p, cfg: resolve(p, s), nb: len(p.Type.Branches), hyst: p.Type.Hysteresis.Max > 0}
+	c := &Counter{pack: p.Prepared(), cfg: resolve(p, s), nb: len(p.Type.Branches), hyst: p.Type.Hysteresis.Max > 0}
 	c.cfg.health = false
 	c.tmin, c.tmax = ocvTempRange(p.Type)
 	if err := c.InitSOC(soc); err != nil {
