@@ -47,6 +47,15 @@ var voltageGuardMV = map[string]float64{
 // max 1.27–1.99 %), so it is empty and the targets are asserted.
 var socGuardPct = map[string][2]float64{}
 
+// loadedTo2Guard bounds the loaded-start protocol's time to within 2 % (s) for two 25 °C
+// profiles, EKF started 20 % below the truth under load (docs/validation.md, "loaded
+// start"). The issue sets no target for this time: these are regression guards, the
+// number this subset measured when they were added plus about 15 %.
+var loadedTo2Guard = map[string]float64{
+	"drive_25degC_HWFET.csv": 290, // measured 253 s
+	"drive_25degC_LA92.csv":  400, // measured 346 s
+}
+
 // TestValidationFastSubset is the CI subset of `make validate`: the pan18650pf cell
 // (Kollmeyer 2018, doi:10.17632/wykht8y7tg.1, CC BY 4.0), fitted from its C/20 OCV test
 // and 25 °C pulse test only, checked on the five 25 °C drive cycles (voltage and SOC) and
@@ -87,6 +96,29 @@ func TestValidationFastSubset(t *testing.T) {
 		if !(s.ekfRMSE < s.ccWrongRMSE) {
 			t.Errorf("%s: EKF RMSE %.2f %% not below the wrongly started counter's %.2f %%", s.profile, s.ekfRMSE, s.ccWrongRMSE)
 		}
+	}
+	guarded := 0
+	for _, s := range res.loaded {
+		g, ok := loadedTo2Guard[s.profile]
+		if !ok || s.offset > 0 {
+			continue
+		}
+		guarded++
+		t.Logf("%s loaded start at %.0f s (%.2f A, SOC %.1f %%, error %+.1f %%): within 2 %% after %s s, RMSE %.2f %%, max %.2f %%",
+			s.profile, s.startSec, s.startAmps, s.truthStart, s.offset, secs(s.within2), s.rmse, s.max)
+		// The protocol's start: under load (|i| > C/5) and the full −20 % applied.
+		if !(math.Abs(s.startAmps) > loadedStartRate*res.capacity) || math.Abs(s.offset+20) > 1e-9 {
+			t.Errorf("%s: loaded start at %.2f A with offset %+.2f %%; want |i| > C/5 and −20 %%", s.profile, s.startAmps, s.offset)
+		}
+		if !(s.within2 <= g) {
+			t.Errorf("%s: loaded start reaches 2 %% after %s s; want ≤ %g s (regression guard, no issue target)", s.profile, secs(s.within2), g)
+		}
+		if !(s.rmse <= targetSOCRMSEPct && s.max <= targetSOCMaxPct) {
+			t.Errorf("%s: loaded start RMSE %.2f %%, max %.2f %%; want ≤ %g %% and ≤ %g %% (issue 3 target)", s.profile, s.rmse, s.max, targetSOCRMSEPct, targetSOCMaxPct)
+		}
+	}
+	if guarded != len(loadedTo2Guard) {
+		t.Errorf("%d loaded-start rows guarded; want %d", guarded, len(loadedTo2Guard))
 	}
 	for _, r := range res.runtime {
 		t.Logf("%s: measured %.0f s, forecast %.0f s (%+.1f %%)", r.file, r.measured, r.forecastSec, r.errPct)
