@@ -512,10 +512,10 @@ func testTelemetryIngestIdempotentAndEqualToModel(t *testing.T, open opener) {
 
 	// Bad samples are rejected one by one; the rest of the block applies.
 	bad := block(0, 0)
-	bad.SequenceNumbers = []int64{5000, 5001, 5002, 5003}
-	bad.TimeOffsetsSeconds = []float64{200, 201, 100, 203}
-	bad.CurrentAmps = []float64{1, math.NaN(), 1, 1}
-	bad.VoltageVolts = []float64{volt[119], volt[119], volt[119], -1}
+	bad.SequenceNumbers = []int64{5000, 5001, 5002, 5003, 5004, 5005, 5006}
+	bad.TimeOffsetsSeconds = []float64{200, 201, 100, 203, math.NaN(), math.Inf(1), -1}
+	bad.CurrentAmps = []float64{1, math.NaN(), 1, 1, 1, 1, 1}
+	bad.VoltageVolts = []float64{volt[119], volt[119], volt[119], -1, volt[119], volt[119], volt[119]}
 	bad.TemperatureCelsius = nil
 	resp, err = e.tel.IngestTelemetry(ctx, &pb.IngestTelemetryRequest{Blocks: []*pb.SampleBlock{bad, {Battery: "batteries/missing", BaseTime: timestamppb.New(base), TimeOffsetsSeconds: []float64{1}, CurrentAmps: []float64{1}, VoltageVolts: []float64{3}}}})
 	if err != nil {
@@ -524,11 +524,13 @@ func testTelemetryIngestIdempotentAndEqualToModel(t *testing.T, open opener) {
 	r = resp.GetResults()[0]
 	var reasons []string
 	for _, rj := range r.GetRejections() {
-		reasons = append(reasons, rj.GetReason().String())
+		reasons = append(reasons, fmt.Sprintf("%d:%d:%s", rj.GetIndex(), rj.GetSequenceNumber(), rj.GetReason()))
 	}
-	if r.GetAppliedCount() != 1 || r.GetRejectedCount() != 3 || strings.Join(reasons, ",") !=
-		"SAMPLE_REJECTION_REASON_NOT_FINITE,SAMPLE_REJECTION_REASON_TIME_BACKWARDS,SAMPLE_REJECTION_REASON_OUT_OF_RANGE" {
-		t.Errorf("bad block: applied %d rejected %d reasons %v", r.GetAppliedCount(), r.GetRejectedCount(), reasons)
+	// Each rejection names its sample by index and by the sequence number the caller
+	// gave, also when the time offset itself is what is wrong.
+	if want := "1:5001:SAMPLE_REJECTION_REASON_NOT_FINITE,2:5002:SAMPLE_REJECTION_REASON_TIME_BACKWARDS,3:5003:SAMPLE_REJECTION_REASON_OUT_OF_RANGE," +
+		"4:5004:SAMPLE_REJECTION_REASON_NOT_FINITE,5:5005:SAMPLE_REJECTION_REASON_NOT_FINITE,6:5006:SAMPLE_REJECTION_REASON_OUT_OF_RANGE"; r.GetAppliedCount() != 1 || r.GetRejectedCount() != 6 || strings.Join(reasons, ",") != want {
+		t.Errorf("bad block: applied %d rejected %d rejections %v; want 1 applied, 6 rejected: %s", r.GetAppliedCount(), r.GetRejectedCount(), reasons, want)
 	}
 	if be := resp.GetResults()[1].GetError(); be.GetCode() != "NOT_FOUND" || be.GetReason() != service.ReasonNotFound {
 		t.Errorf("block of a missing battery: %v; want NOT_FOUND", be)

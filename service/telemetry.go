@@ -63,6 +63,10 @@ func (h *telemetryServer) ingest(ctx context.Context, req *pb.IngestTelemetryReq
 	return resp, nil
 }
 
+// persistTimeout bounds a write-behind persist that runs on a context detached from
+// its request (or stream).
+const persistTimeout = 10 * time.Second
+
 func tooLarge(field, format string, args ...any) *Error {
 	e := invalid(field, format, args...)
 	e.Reason = ReasonRequestTooLarge
@@ -76,7 +80,7 @@ func (h *telemetryServer) StreamTelemetry(stream pb.TelemetryService_StreamTelem
 	defer func() {
 		// Persist what this stream applied (on close, as documented), with a context
 		// that outlives the stream's: the samples are acknowledged already.
-		fctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
+		fctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), persistTimeout)
 		defer cancel()
 		for id := range touched {
 			if err := h.s.persistNow(fctx, id); err != nil {
@@ -218,7 +222,12 @@ func (s *Service) applyBlock(ctx context.Context, field string, b *pb.SampleBloc
 	}
 	e.pending += int(res.AppliedCount)
 	if e.pending > 0 && (e.pending >= s.limits.PersistEverySamples || s.now().Sub(e.lastPersist) >= s.limits.PersistInterval) {
-		if err := s.persist(ctx, e); err != nil {
+		// The write outlives the request: a caller that hangs up must not turn a
+		// due persist into an ambiguous one (STYLE.md §4, detached writes).
+		pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), persistTimeout)
+		err := s.persist(pctx, e)
+		cancel()
+		if err != nil {
 			// The samples are applied in memory; the durable watermark in the reply
 			// tells the caller they are not yet safe.
 			s.log.WarnContext(ctx, "persisting battery state", "battery", id, "error", err.Error())
@@ -257,19 +266,22 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 		case n:
 			tc = temps[k]
 		}
+		// An explicit sequence number names the sample even when its time offset is
+		// unusable, so that the rejection tells the caller which sample it was.
 		var seq int64
+		if len(seqs) > 0 {
+			seq = seqs[k]
+		}
 		if !cell.Finite(off) {
-			s.reject(ctx, res, k, 0, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_NOT_FINITE, "time offset is %g", off)
+			s.reject(ctx, res, k, seq, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_NOT_FINITE, "time offset is %g", off)
 			continue
 		}
 		if off < 0 || off > 1e9 {
-			s.reject(ctx, res, k, 0, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUT_OF_RANGE, "time offset must be 0 to 1e9 s, got %g", off)
+			s.reject(ctx, res, k, seq, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUT_OF_RANGE, "time offset must be 0 to 1e9 s, got %g", off)
 			continue
 		}
 		t := base.Add(time.Duration(math.Round(off * 1e9)))
-		if len(seqs) > 0 {
-			seq = seqs[k]
-		} else {
+		if len(seqs) == 0 {
 			seq = t.UnixMicro()
 		}
 		switch {
