@@ -20,6 +20,19 @@ const (
 	maxDescription  = 2000
 )
 
+// Plausibility ranges of a registered type's magnitudes, per cell. They are far
+// outside any real cell (a coin cell holds about 0.01 Ah, a large stationary cell a
+// few thousand; no single cell exceeds a few volts) and keep a value in the wrong unit
+// (mAh as Ah, mV as V) or an absurd one such as 1e308 from reaching the estimator,
+// where it overflowed the tracked state of charge to NaN.
+const (
+	minCellAmpHours = 1e-4
+	maxCellAmpHours = 1e5
+	maxCellVolts    = 100
+	maxCellOhms     = 1e4
+	maxCRate        = 1000
+)
+
 var chemistryToPB = map[cell.Chemistry]pb.Chemistry{
 	cell.ChemistryNMC:        pb.Chemistry_CHEMISTRY_NMC,
 	cell.ChemistryNCA:        pb.Chemistry_CHEMISTRY_NCA,
@@ -222,6 +235,7 @@ func typeFromPB(field string, in *pb.BatteryType, id string) (*cell.Type, error)
 			TimerFactor:         l.GetTimerFactor(),
 		}
 	}
+	checkTypeMagnitudes(&v, field, in)
 	if err := v.err(); err != nil {
 		return nil, err
 	}
@@ -229,6 +243,53 @@ func typeFromPB(field string, in *pb.BatteryType, id string) (*cell.Type, error)
 		return nil, modelFieldErr(field, err)
 	}
 	return t, nil
+}
+
+// checkTypeMagnitudes reports magnitudes of in beyond the plausibility ranges above.
+// Signs, finiteness and consistency are left to [cell.Type.Validate].
+func checkTypeMagnitudes(v *violations, field string, in *pb.BatteryType) {
+	f := func(s string) string { return field + "." + s }
+	if q := in.GetCapacityAmpHours(); q != 0 && cell.Finite(q) && (q < minCellAmpHours || q > maxCellAmpHours) {
+		v.add(f("capacity_amp_hours"), "must be %g to %g Ah per cell, got %g (milliampere-hours passed as ampere-hours?)", minCellAmpHours, maxCellAmpHours, q)
+	}
+	atMost := func(name string, x, hi float64, unit string) {
+		if cell.Finite(x) && math.Abs(x) > hi {
+			v.add(f(name), "must be at most %g %s per cell, got %g", hi, unit, x)
+		}
+	}
+	atMost("nominal_voltage_volts", in.GetNominalVoltageVolts(), maxCellVolts, "V")
+	surface := func(name string, s *pb.Surface, hi float64, unit string) {
+		for j, r := range s.GetRows() {
+			for i, x := range r.GetValues() {
+				atMost(fmt.Sprintf("%s.rows[%d].values[%d]", name, j, i), x, hi, unit)
+			}
+		}
+	}
+	param := func(name string, p *pb.TemperatureParameter, hi float64, unit string) {
+		atMost(name+".value", p.GetValue(), hi, unit)
+		surface(name+".table", p.GetTable(), hi, unit)
+	}
+	surface("open_circuit_voltage_volts", in.GetOpenCircuitVoltageVolts(), maxCellVolts, "V")
+	param("series_resistance_ohms", in.GetSeriesResistanceOhms(), maxCellOhms, "ohm")
+	for k, b := range in.GetRcBranches() {
+		param(fmt.Sprintf("rc_branches[%d].resistance_ohms", k), b.GetResistanceOhms(), maxCellOhms, "ohm")
+	}
+	if l := in.GetLimits(); l != nil {
+		for _, x := range []struct {
+			name string
+			x    float64
+		}{{"charge_voltage_volts", l.GetChargeVoltageVolts()}, {"float_voltage_volts", l.GetFloatVoltageVolts()},
+			{"cutoff_voltage_volts", l.GetCutoffVoltageVolts()}, {"floor_voltage_volts", l.GetFloorVoltageVolts()}} {
+			atMost("limits."+x.name, x.x, maxCellVolts, "V")
+		}
+		for _, x := range []struct {
+			name string
+			x    float64
+		}{{"max_charge_c_rate", l.GetMaxChargeCRate()}, {"standard_charge_c_rate", l.GetStandardChargeCRate()},
+			{"max_discharge_c_rate", l.GetMaxDischargeCRate()}, {"termination_c_rate", l.GetTerminationCRate()}} {
+			atMost("limits."+x.name, x.x, maxCRate, "C")
+		}
+	}
 }
 
 // modelFieldErr moves a model validation error's field path into the API's names.

@@ -11,6 +11,7 @@ import (
 	"net"
 	"net/http"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -303,15 +304,32 @@ func testBatteryTypeRegister(t *testing.T, open opener) {
 	if _, err := e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "generic-lfp-26650", BatteryType: in}); status.Code(err) != codes.AlreadyExists {
 		t.Errorf("create with a built-in id: %v; want ALREADY_EXISTS", err)
 	}
-	// An invalid parameter set names the field, and stores nothing.
-	bad := proto.Clone(in).(*pb.BatteryType)
-	bad.Limits.CutoffVoltageVolts = math.NaN()
-	_, err = e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "bench-b", BatteryType: bad})
-	if _, fields := details(err); status.Code(err) != codes.InvalidArgument || len(fields) != 1 || fields[0] != "battery_type.limits.cutoff_voltage_volts" {
-		t.Errorf("NaN cut-off: %v (fields %v); want INVALID_ARGUMENT on battery_type.limits.cutoff_voltage_volts", err, fields)
-	}
-	if _, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/bench-b"}); status.Code(err) != codes.NotFound {
-		t.Errorf("rejected type was stored: %v", err)
+	// An invalid parameter set names the field, and stores nothing. Absurd magnitudes
+	// (a unit slip, or 1e308 Ah, which overflowed a tracked state of charge to NaN) are
+	// refused like non-finite ones.
+	for _, c := range []struct {
+		name  string
+		edit  func(*pb.BatteryType)
+		field string
+	}{
+		{"NaN cut-off", func(b *pb.BatteryType) { b.Limits.CutoffVoltageVolts = math.NaN() }, "battery_type.limits.cutoff_voltage_volts"},
+		{"huge capacity", func(b *pb.BatteryType) { b.CapacityAmpHours = 1e308 }, "battery_type.capacity_amp_hours"},
+		{"mAh as Ah", func(b *pb.BatteryType) { b.CapacityAmpHours = 3100e3 }, "battery_type.capacity_amp_hours"},
+		{"tiny capacity", func(b *pb.BatteryType) { b.CapacityAmpHours = 1e-300 }, "battery_type.capacity_amp_hours"},
+		{"huge nominal voltage", func(b *pb.BatteryType) { b.NominalVoltageVolts = 1e300 }, "battery_type.nominal_voltage_volts"},
+		{"huge series resistance", func(b *pb.BatteryType) { b.SeriesResistanceOhms = &pb.TemperatureParameter{Value: 1e300} }, "battery_type.series_resistance_ohms.value"},
+		{"huge open-circuit voltage", func(b *pb.BatteryType) { b.OpenCircuitVoltageVolts.Rows[0].Values[3] *= 1e6 }, "battery_type.open_circuit_voltage_volts.rows[0].values[3]"},
+		{"huge C-rate", func(b *pb.BatteryType) { b.Limits.MaxDischargeCRate = 1e300 }, "battery_type.limits.max_discharge_c_rate"},
+	} {
+		bad := proto.Clone(in).(*pb.BatteryType)
+		c.edit(bad)
+		_, err = e.types.CreateBatteryType(ctx, &pb.CreateBatteryTypeRequest{BatteryTypeId: "bench-b", BatteryType: bad})
+		if _, fields := details(err); status.Code(err) != codes.InvalidArgument || !slices.Contains(fields, c.field) {
+			t.Errorf("%s: %v (fields %v); want INVALID_ARGUMENT on %s", c.name, err, fields, c.field)
+		}
+		if _, err := e.types.GetBatteryType(ctx, &pb.GetBatteryTypeRequest{Name: "batteryTypes/bench-b"}); status.Code(err) != codes.NotFound {
+			t.Errorf("%s: rejected type was stored: %v", c.name, err)
+		}
 	}
 	// In use: a battery refers to it.
 	if _, err := e.bats.CreateBattery(ctx, &pb.CreateBatteryRequest{BatteryId: "b1", Battery: &pb.Battery{BatteryType: "batteryTypes/bench-a", SeriesCount: 4, ParallelCount: 1}}); err != nil {
