@@ -307,6 +307,9 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 		}
 		tk := cell.Kelvin(tc)
 		sample := estimate.Sample{Time: float64(t.UnixNano()) / 1e9, Current: cur, Voltage: volt, Temperature: tk}
+		// The state before the sample, put back if the sample would leave a
+		// non-finite state behind (which could then never be persisted).
+		prev := e.ekf.State()
 		if !e.st.Initialized {
 			if err := e.ekf.InitFromVoltage(volt, tk); err != nil {
 				s.reject(ctx, res, k, seq, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUT_OF_RANGE, "cannot initialise the estimate from this voltage: %v", err)
@@ -314,7 +317,13 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 			}
 		}
 		est, err := e.ekf.Update(sample)
+		if err == nil && !finiteState(e.ekf.State()) {
+			err = errors.New("the estimate would no longer be finite")
+		}
 		if err != nil {
+			if rerr := e.ekf.Restore(prev); rerr != nil {
+				panic("service: restoring the estimator's own state: " + rerr.Error())
+			}
 			s.reject(ctx, res, k, seq, pb.SampleRejectionReason_SAMPLE_REJECTION_REASON_OUT_OF_RANGE, "%v", err)
 			continue
 		}
@@ -349,4 +358,18 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 		e.applied.Sequence, e.applied.Time = seq, t
 		res.AppliedCount++
 	}
+}
+
+// finiteState reports whether every number of an estimator state is finite.
+func finiteState(st estimate.State) bool {
+	ok := cell.Finite(st.SOC) && cell.Finite(st.HysteresisVolts) && cell.Finite(st.CapacityFactor) && cell.Finite(st.ResistanceFactor)
+	for _, v := range st.BranchVolts {
+		ok = ok && cell.Finite(v)
+	}
+	for _, row := range st.Covariance {
+		for _, v := range row {
+			ok = ok && cell.Finite(v)
+		}
+	}
+	return ok
 }
