@@ -317,8 +317,14 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 			}
 		}
 		est, err := e.ekf.Update(sample)
-		if err == nil && !finiteState(e.ekf.State()) {
-			err = errors.New("the estimate would no longer be finite")
+		if err == nil {
+			// Restoring the filter's own state runs the model's check of a usable
+			// state, the one load applies to a stored state: a state it refuses
+			// (not finite, or an RC voltage beyond what any cell holds) would be
+			// persisted but never load again.
+			if cerr := e.ekf.Restore(e.ekf.State()); cerr != nil {
+				err = fmt.Errorf("the sample would leave an unusable estimate: %w", cerr)
+			}
 		}
 		if err != nil {
 			if rerr := e.ekf.Restore(prev); rerr != nil {
@@ -358,18 +364,4 @@ func (s *Service) applySamples(ctx context.Context, e *entry, b *pb.SampleBlock,
 		e.applied.Sequence, e.applied.Time = seq, t
 		res.AppliedCount++
 	}
-}
-
-// finiteState reports whether every number of an estimator state is finite.
-func finiteState(st estimate.State) bool {
-	ok := cell.Finite(st.SOC) && cell.Finite(st.HysteresisVolts) && cell.Finite(st.CapacityFactor) && cell.Finite(st.ResistanceFactor)
-	for _, v := range st.BranchVolts {
-		ok = ok && cell.Finite(v)
-	}
-	for _, row := range st.Covariance {
-		for _, v := range row {
-			ok = ok && cell.Finite(v)
-		}
-	}
-	return ok
 }
