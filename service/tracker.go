@@ -159,15 +159,9 @@ func (s *Service) persist(ctx context.Context, e *entry) error {
 	if err != nil {
 		return fmt.Errorf("battery %s: encoding state: %w", e.id, err)
 	}
-	est := e.ekf.State()
-	sum := store.Summary{
-		SOC:                clamp01(est.SOC),
-		SOCSigma:           math.Sqrt(math.Max(est.Covariance[0][0], 0)),
-		CapacityFactor:     est.CapacityFactor,
-		ResistanceFactor:   est.ResistanceFactor,
-		EquivalentCycles:   e.st.EquivalentCycles,
-		TemperatureCelsius: e.st.LastTemperatureC,
-	}
+	sum := e.summary()
+	sum.EquivalentCycles, sum.TemperatureCelsius = e.st.EquivalentCycles, e.st.LastTemperatureC
+	sum.VoltageVolts, sum.CurrentAmps = e.st.LastVoltageVolts, e.st.LastCurrentAmps
 	start := time.Now()
 	v, err := s.store.PutState(ctx, tenant(ctx), e.id, e.version, store.State{Estimator: blob, Summary: sum, Watermark: e.applied})
 	s.metrics.observeStore(ctx, "PutState", start)
@@ -302,14 +296,19 @@ func (s *Service) batteryState(ctx context.Context, id string) (*pb.BatteryState
 }
 
 func (e *entry) stateToPB() *pb.BatteryState {
+	return stateToPB(e.st, e.summary(), e.applied, e.durable)
+}
+
+// summary is the estimator's part of the entry's stored summary: state of charge
+// (clamped to [0, 1]) with its standard deviation, and the health factors.
+func (e *entry) summary() store.Summary {
 	est := e.ekf.State()
-	sum := store.Summary{
+	return store.Summary{
 		SOC:              clamp01(est.SOC),
 		SOCSigma:         math.Sqrt(math.Max(est.Covariance[0][0], 0)),
 		CapacityFactor:   est.CapacityFactor,
 		ResistanceFactor: est.ResistanceFactor,
 	}
-	return stateToPB(e.st, sum, e.applied, e.durable)
 }
 
 func stateToPB(saved savedState, sum store.Summary, applied, durable store.Watermark) *pb.BatteryState {
