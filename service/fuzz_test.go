@@ -86,6 +86,10 @@ func FuzzSampleBlock(f *testing.F) {
 		if z := e.ekf.State().SOC; math.IsNaN(z) {
 			t.Fatalf("state of charge became NaN")
 		}
+		// What the tracker would persist must load again (load restores it).
+		if err := e.ekf.Restore(e.ekf.State()); err != nil {
+			t.Fatalf("the state left by the block would not load again: %v", err)
+		}
 	})
 }
 
