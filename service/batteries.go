@@ -213,7 +213,7 @@ func (h *batteryServer) update(ctx context.Context, req *pb.UpdateBatteryRequest
 	}
 	for _, p := range req.GetUpdateMask().GetPaths() {
 		switch p {
-		case "display_name":
+		case "display_name", "displayName": // proto name, or the JSON name a REST client writes (AIP-161)
 			setName = true
 		case "labels":
 			setLabels = true

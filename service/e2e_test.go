@@ -388,6 +388,11 @@ func testBatteriesCRUDOverRESTAndGRPC(t *testing.T, open opener) {
 	if status.Code(err) != codes.Aborted {
 		t.Errorf("update with a stale etag: %v; want ABORTED", err)
 	}
+	// Over REST the mask may use the JSON name (AIP-161), as a query parameter.
+	if code, body := e.do(t, "PATCH", "/v1/batteries/bike-7?updateMask=displayName", `{"displayName":"cargo bike 7b","labels":{"ignored":"x"}}`); code != http.StatusOK ||
+		body["displayName"] != "cargo bike 7b" || body["labels"].(map[string]any)["fleet"] != "south" {
+		t.Errorf("REST PATCH ?updateMask=displayName = %d %v; want 200 with the new display name and the labels kept", code, body)
+	}
 	// Immutable fields cannot be in the mask.
 	_, err = e.bats.UpdateBattery(ctx, &pb.UpdateBatteryRequest{
 		Battery:    &pb.Battery{Name: "batteries/bike-7", SeriesCount: 2},

@@ -638,8 +638,9 @@ type UpdateBatteryRequest struct {
 	// The battery with its name set and the new values of the fields in update_mask.
 	// Required.
 	Battery *Battery `protobuf:"bytes,1,opt,name=battery,proto3" json:"battery,omitempty"`
-	// Fields to change: "display_name" and/or "labels" (labels are replaced as a whole).
-	// Required; "*" means both. Other fields are INVALID_ARGUMENT.
+	// Fields to change: "display_name" (over REST also "displayName") and/or "labels"
+	// (labels are replaced as a whole). Required; "*" means both. Other fields are
+	// INVALID_ARGUMENT.
 	UpdateMask    *fieldmaskpb.FieldMask `protobuf:"bytes,2,opt,name=update_mask,json=updateMask,proto3" json:"update_mask,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
