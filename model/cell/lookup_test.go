@@ -153,3 +153,40 @@ func TestPreparedStepsAsLiteral(t *testing.T) {
 		t.Errorf("Prepared pack stepped to %+v; struct literal to %+v", s2, s1)
 	}
 }
+
+// TestOhmic2MatchesAdvance holds the two-ohmic-branch path of the grouped lookup to the
+// general grouped loop (advance) bit for bit, and checks that it applies exactly to the
+// shape it was written for: two ohmic branches still holding the grouped tables.
+func TestOhmic2MatchesAdvance(t *testing.T) {
+	typ := benchType(t)
+	l := newLookup(typ)
+	rng := rand.New(rand.NewPCG(7, 8))
+	for range 500 {
+		s0 := State{SOC: -0.05 + 1.1*rng.Float64(), V: [MaxBranches]float64{0.02 * rng.Float64(), -0.01 * rng.Float64()}}
+		ic, dt, tk, rf := 10*rng.Float64()-4, 0.01*float64(int(1)<<rng.IntN(22)), Kelvin(-20+70*rng.Float64()), 0.5+rng.Float64()
+		a, b := s0, s0
+		if !l.advanceOhmic2(&a, typ.Branches, ic, s0.SOC, dt, tk, rf) {
+			t.Fatal("advanceOhmic2 did not apply to a type with two ohmic tabulated branches")
+		}
+		l.advance(&b, typ, ic, s0.SOC, dt, tk, rf)
+		if a != b {
+			t.Fatalf("from %+v (i=%g, dt=%g, T=%g K, rf=%g): advanceOhmic2 %+v; advance %+v", s0, ic, dt, tk, rf, a, b)
+		}
+	}
+	var s State
+	typ.Branches[0].ExchangeCurrent = &Param{Value: 1}
+	if l.advanceOhmic2(&s, typ.Branches, 1, 0.5, 1, 298.15, 1) {
+		t.Error("advanceOhmic2 applied to a charge-transfer branch")
+	}
+	typ.Branches[0].ExchangeCurrent = nil
+	typ.Branches[1].C.Table = typ.Branches[0].C.Table
+	if l.advanceOhmic2(&s, typ.Branches, 1, 0.5, 1, 298.15, 1) {
+		t.Error("advanceOhmic2 applied after a branch table was replaced")
+	}
+	if l.advanceOhmic2(&s, typ.Branches[:1], 1, 0.5, 1, 298.15, 1) {
+		t.Error("advanceOhmic2 applied to one branch")
+	}
+	if s != (State{}) {
+		t.Errorf("advanceOhmic2 changed the state when it did not apply: %+v", s)
+	}
+}

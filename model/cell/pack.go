@@ -154,7 +154,9 @@ func (p Pack) Step(s *State, i, dt, tk float64) {
 	z := s.SOC
 	rf := p.resFactor()
 	if l := p.lookup; l != nil && l.typ == t && len(t.Branches) == l.nb {
-		l.advance(s, t, ic, z, dt, tk, rf)
+		if !l.advanceOhmic2(s, t.Branches, ic, z, dt, tk, rf) {
+			l.advance(s, t, ic, z, dt, tk, rf)
+		}
 	} else {
 		for k := range t.Branches {
 			b := &t.Branches[k]

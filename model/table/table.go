@@ -510,9 +510,14 @@ type Group struct {
 	grid
 	temps   []float64
 	members []*Surface
-	// p[(k·len(temps)+j)·len(members)+m] is piece k of member m's curve j.
-	p []poly
+	// p[(k·len(temps)+j)·len(members)+m] holds piece k of member m's curves j and
+	// j+1 (j again for the last temperature): everything one lookup blends lies in
+	// len(members) consecutive pairs.
+	p []piecePair
 }
+
+// piecePair is the piece of one segment at two neighbouring temperatures.
+type piecePair [2]poly
 
 // NewGroup returns the group of the given surfaces, and false if there are none, more
 // than [MaxGroup], a nil one, or two that do not share their knots and temperatures
@@ -529,11 +534,11 @@ func NewGroup(members ...*Surface) (*Group, bool) {
 	first := members[0]
 	nt, nm := len(first.temps), len(members)
 	g := &Group{grid: first.grid, temps: first.temps, members: append([]*Surface(nil), members...)}
-	g.p = make([]poly, (len(g.x)-1)*nt*nm)
+	g.p = make([]piecePair, (len(g.x)-1)*nt*nm)
 	for m, sf := range members {
 		for k := range len(g.x) - 1 {
 			for j := range nt {
-				g.p[(k*nt+j)*nm+m] = sf.p[k*nt+j]
+				g.p[(k*nt+j)*nm+m] = piecePair{sf.p[k*nt+j], sf.p[k*nt+min(j+1, nt-1)]}
 			}
 		}
 	}
@@ -577,17 +582,15 @@ func (g *Group) At(dst []float64, s, tk float64) {
 	j, w := bracket(g.temps, tk)
 	k := g.search(s)
 	ds := s - x[k]
-	i := (k*len(g.temps) + j) * nm
+	p := g.p[(k*len(g.temps)+j)*nm:][:len(dst)]
 	if w == 0 {
-		p := g.p[i : i+nm]
-		for m := range dst {
-			dst[m] = p[m].at(ds)
+		for m := range p {
+			dst[m] = p[m][0].at(ds)
 		}
 		return
 	}
-	p := g.p[i : i+2*nm]
-	for m := range dst {
-		v := p[m].at(ds)
-		dst[m] = v + w*(p[nm+m].at(ds)-v)
+	for m := range p {
+		v := p[m][0].at(ds)
+		dst[m] = v + w*(p[m][1].at(ds)-v)
 	}
 }
