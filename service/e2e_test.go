@@ -6,11 +6,9 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"log/slog"
 	"math"
 	"net"
 	"net/http"
-	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -19,7 +17,6 @@ import (
 	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/credentials/insecure"
 	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/types/known/fieldmaskpb"
@@ -34,9 +31,9 @@ import (
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 	"github.com/voltcast/voltcast/service"
 	"github.com/voltcast/voltcast/service/internal/pgtest"
+	"github.com/voltcast/voltcast/service/servicetest"
 	"github.com/voltcast/voltcast/service/store"
 	"github.com/voltcast/voltcast/service/store/postgres"
-	"github.com/voltcast/voltcast/service/store/sqlite"
 )
 
 // env is an in-process server: the real gRPC server on a loopback port chosen by the
@@ -57,14 +54,7 @@ type env struct {
 // opener opens a fresh, empty store for one test.
 type opener func(t testing.TB) store.Store
 
-func openSQLite(t testing.TB) store.Store {
-	t.Helper()
-	st, err := sqlite.Open(context.Background(), filepath.Join(t.TempDir(), "voltcast.db"), nil)
-	if err != nil {
-		t.Fatalf("sqlite.Open: %v", err)
-	}
-	return st
-}
+func openSQLite(t testing.TB) store.Store { return servicetest.SQLite(t) }
 
 // openPostgres opens a store in a fresh schema, or skips (see package pgtest:
 // VOLTCAST_TEST_POSTGRES_DSN, VOLTCAST_REQUIRE_POSTGRES).
@@ -103,20 +93,8 @@ func runStores(t *testing.T, parallel bool, f func(t *testing.T, open opener)) {
 
 func newEnv(t testing.TB, open opener, limits service.Limits) *env {
 	t.Helper()
-	ctx := context.Background()
-	st := open(t)
-	log := slog.New(slog.NewTextHandler(t.Output(), &slog.HandlerOptions{Level: slog.LevelWarn}))
-	svc, err := service.New(service.Options{Store: st, Logger: log, Limits: limits})
-	if err != nil {
-		t.Fatalf("service.New: %v", err)
-	}
-	gs, _ := service.NewGRPCServer(svc, service.ServerOptions{Logger: log})
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	go gs.Serve(lis)
-	gw, err := gateway.New(ctx, gateway.Options{GRPCAddress: lis.Addr().String(), MaxBodyBytes: 1 << 20})
+	srv := servicetest.Start(t, open(t), service.Options{Limits: limits})
+	gw, err := gateway.New(context.Background(), gateway.Options{GRPCAddress: srv.Addr, MaxBodyBytes: 1 << 20})
 	if err != nil {
 		t.Fatalf("gateway.New: %v", err)
 	}
@@ -126,25 +104,15 @@ func newEnv(t testing.TB, open opener, limits service.Limits) *env {
 	}
 	hs := &http.Server{Handler: gw.Handler()}
 	go hs.Serve(hlis)
-	conn, err := grpc.NewClient(lis.Addr().String(), grpc.WithTransportCredentials(insecure.NewCredentials()))
-	if err != nil {
-		t.Fatal(err)
-	}
+	// Registered after servicetest.Start's cleanup, so it runs first: the gateway stops
+	// before the gRPC server it calls.
 	t.Cleanup(func() {
-		conn.Close()
 		hs.Close()
 		gw.Close()
-		gs.Stop()
-		if err := svc.Flush(context.Background()); err != nil {
-			t.Errorf("Flush: %v", err)
-		}
-		if err := svc.Close(context.Background()); err != nil {
-			t.Errorf("Close: %v", err)
-		}
-		st.Close()
 	})
+	conn := srv.Conn
 	return &env{
-		conn: conn, httpBase: "http://" + hlis.Addr().String(), svc: svc, st: st,
+		conn: conn, httpBase: "http://" + hlis.Addr().String(), svc: srv.Service, st: srv.Store,
 		types: pb.NewBatteryTypeServiceClient(conn),
 		bats:  pb.NewBatteryServiceClient(conn),
 		tel:   pb.NewTelemetryServiceClient(conn),

@@ -4,17 +4,13 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
-	"log/slog"
-	"net"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
-	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/credentials/insecure"
 	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/encoding/protojson"
 	"google.golang.org/protobuf/proto"
@@ -25,7 +21,7 @@ import (
 	"github.com/voltcast/voltcast/model/chem"
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 	"github.com/voltcast/voltcast/service"
-	"github.com/voltcast/voltcast/service/store/sqlite"
+	"github.com/voltcast/voltcast/service/servicetest"
 )
 
 // The client subcommands are checked against the server itself: what the CLI prints
@@ -43,39 +39,12 @@ type testServer struct {
 
 func startTestServer(t *testing.T) *testServer {
 	t.Helper()
-	ctx := context.Background()
-	st, err := sqlite.Open(ctx, filepath.Join(t.TempDir(), "voltcast.db"), nil)
-	if err != nil {
-		t.Fatalf("sqlite.Open: %v", err)
-	}
-	log := slog.New(slog.NewTextHandler(t.Output(), &slog.HandlerOptions{Level: slog.LevelWarn}))
-	svc, err := service.New(service.Options{Store: st, Logger: log})
-	if err != nil {
-		t.Fatalf("service.New: %v", err)
-	}
-	gs, _ := service.NewGRPCServer(svc, service.ServerOptions{Logger: log})
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	go gs.Serve(lis)
-	conn, err := grpc.NewClient(lis.Addr().String(), grpc.WithTransportCredentials(insecure.NewCredentials()))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() {
-		conn.Close()
-		gs.Stop()
-		if err := svc.Flush(context.Background()); err != nil {
-			t.Errorf("Flush: %v", err)
-		}
-		st.Close()
-	})
+	srv := servicetest.Start(t, servicetest.SQLite(t), service.Options{})
 	return &testServer{
-		addr:  lis.Addr().String(),
-		bats:  pb.NewBatteryServiceClient(conn),
-		types: pb.NewBatteryTypeServiceClient(conn),
-		fc:    pb.NewForecastServiceClient(conn),
+		addr:  srv.Addr,
+		bats:  pb.NewBatteryServiceClient(srv.Conn),
+		types: pb.NewBatteryTypeServiceClient(srv.Conn),
+		fc:    pb.NewForecastServiceClient(srv.Conn),
 	}
 }
 

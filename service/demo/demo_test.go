@@ -3,20 +3,15 @@ package demo_test
 import (
 	"context"
 	"log/slog"
-	"net"
-	"path/filepath"
 	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
 
-	"google.golang.org/grpc"
-	"google.golang.org/grpc/credentials/insecure"
-
 	pb "github.com/voltcast/voltcast/proto/voltcast/v1"
 	"github.com/voltcast/voltcast/service"
 	"github.com/voltcast/voltcast/service/demo"
-	"github.com/voltcast/voltcast/service/store/sqlite"
+	"github.com/voltcast/voltcast/service/servicetest"
 )
 
 // warnings is a slog handler that writes to the test log and keeps every record at
@@ -56,34 +51,8 @@ func (w warnings) list() []string {
 // a temporary directory, and returns its address and a client of it.
 func startServer(t *testing.T, log *slog.Logger) (string, pb.BatteryServiceClient) {
 	t.Helper()
-	ctx := context.Background()
-	st, err := sqlite.Open(ctx, filepath.Join(t.TempDir(), "voltcast.db"), nil)
-	if err != nil {
-		t.Fatalf("sqlite.Open: %v", err)
-	}
-	svc, err := service.New(service.Options{Store: st, Logger: log})
-	if err != nil {
-		t.Fatalf("service.New: %v", err)
-	}
-	gs, _ := service.NewGRPCServer(svc, service.ServerOptions{Logger: log})
-	lis, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	go gs.Serve(lis)
-	conn, err := grpc.NewClient(lis.Addr().String(), grpc.WithTransportCredentials(insecure.NewCredentials()))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() {
-		conn.Close()
-		gs.Stop()
-		if err := svc.Flush(context.Background()); err != nil {
-			t.Errorf("Flush: %v", err)
-		}
-		st.Close()
-	})
-	return lis.Addr().String(), pb.NewBatteryServiceClient(conn)
+	srv := servicetest.Start(t, servicetest.SQLite(t), service.Options{Logger: log})
+	return srv.Addr, pb.NewBatteryServiceClient(srv.Conn)
 }
 
 func listAll(t *testing.T, c pb.BatteryServiceClient) []*pb.Battery {
