@@ -246,9 +246,14 @@ type lifetimeCell struct {
 
 // lifetimeReport is the JSON document of `voltcast lifetime --json`.
 type lifetimeReport struct {
-	EndOfLifeFraction float64        `json:"end_of_life_fraction"`
-	Convention        string         `json:"convention"`
-	Cells             []lifetimeCell `json:"cells"`
+	EndOfLifeFraction float64 `json:"end_of_life_fraction"`
+	Convention        string  `json:"convention"`
+	// For a file of one cell, that cell's projection also stands at the top level, so a
+	// caller with one cell reads cycles_to_end_of_life directly; the full result is
+	// cells[0].
+	CyclesToEndOfLife *lifetimeInterval `json:"cycles_to_end_of_life,omitempty"`
+	DaysToEndOfLife   *lifetimeInterval `json:"days_to_end_of_life,omitempty"`
+	Cells             []lifetimeCell    `json:"cells"`
 }
 
 const lifetimeConvention = "cycles_to_end_of_life.value is the cycle index (in the file's own numbering) at which the chosen capacity-fade trend reaches end_of_life_fraction of the reference capacity; " +
@@ -408,6 +413,9 @@ func runLifetime(_ context.Context, args []string, stdout, stderr io.Writer) err
 		}
 	}
 	if *asJSON {
+		if len(rep.Cells) == 1 {
+			rep.CyclesToEndOfLife, rep.DaysToEndOfLife = rep.Cells[0].CyclesToEndOfLife, rep.Cells[0].DaysToEndOfLife
+		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
 		return enc.Encode(rep)

@@ -94,6 +94,44 @@ func TestLifetimeJSONContract(t *testing.T) {
 	}
 }
 
+// TestLifetimeJSONSingleCell checks that a file of one cell (no cell_id column) also
+// carries that cell's cycles_to_end_of_life at the top level, equal to the entry in
+// cells, and that a file of several cells does not: 2.0 − 0.001·n reaches 80 % of the
+// initial 1.985 Ah (median of the first five points, at n = 15) at n = 412.
+func TestLifetimeJSONSingleCell(t *testing.T) {
+	var rows []string
+	for _, r := range lineRows("", 2.0, 0.001, 40, 5) {
+		rows = append(rows, strings.TrimPrefix(r, ","))
+	}
+	in := writeLifetimeCSV(t, "cycle,capacity_ah", rows)
+	code, out, errs := runLifetimeCLI(t, "--in", in, "--json")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	type interval struct{ Value, Low, High float64 }
+	var rep struct {
+		Top   *interval `json:"cycles_to_end_of_life"`
+		Cells []struct {
+			C *interval `json:"cycles_to_end_of_life"`
+		} `json:"cells"`
+	}
+	if err := json.Unmarshal([]byte(out), &rep); err != nil {
+		t.Fatal(err)
+	}
+	if rep.Top == nil || len(rep.Cells) != 1 || rep.Cells[0].C == nil || *rep.Top != *rep.Cells[0].C {
+		t.Fatalf("single cell: top-level %+v, cells %+v; want the same interval in both", rep.Top, rep.Cells)
+	}
+	if want := (2.0 - 0.8*(2.0-0.001*15)) / 0.001; math.Abs(rep.Top.Value-want) > 0.01*want {
+		t.Errorf("end of life %g; want %g", rep.Top.Value, want)
+	}
+	two := writeLifetimeCSV(t, "cell_id,cycle,capacity_ah", append(lineRows("P1", 2.0, 0.001, 40, 5), lineRows("P2", 3.0, 0.002, 40, 5)...))
+	_, out, _ = runLifetimeCLI(t, "--in", two, "--json")
+	rep.Top = nil
+	if err := json.Unmarshal([]byte(out), &rep); err != nil || rep.Top != nil {
+		t.Errorf("two cells: top-level cycles_to_end_of_life = %+v (err %v); want none", rep.Top, err)
+	}
+}
+
 func TestLifetimeOptions(t *testing.T) {
 	// lineRows emits a leading cell column; this table has none.
 	rows := lineRows("", 2.0, 0.001, 40, 5)
